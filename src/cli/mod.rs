@@ -1,0 +1,393 @@
+//! Command-line interface: clap arguments, their conversion into library settings, progress
+//! drawing and exit codes. No analysis logic lives here.
+//!
+//! Exit codes: 0 the command ran (trials may be flagged or failed); 1 `trial` could not
+//! analyse its trial; 2 usage error (bad option, missing input, bad rig profile); 3 the output
+//! folder cannot be written; 4 `--strict` and at least one trial failed.
+
+mod progress;
+
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+use clap::{Args, Parser, Subcommand, ValueEnum};
+
+use crate::batch::{self, BatchConfig};
+use crate::error::Error;
+use crate::measure::Status;
+use crate::pipeline::{self, Scratch, TrialSpec};
+use crate::report;
+use crate::rig::RigProfile;
+use crate::synth::{self, SampleEncoding, SynthConfig, TrialKind};
+
+#[derive(Parser, Debug)]
+#[command(
+    name = "latchtime",
+    version,
+    about = "Times latch-mediated spring actuation trials from audio and high-speed video"
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Analyse one trial and print its record.
+    Trial(TrialArgs),
+    /// Analyse every trial of a folder or manifest into an output folder.
+    Batch(BatchArgs),
+    /// Rebuild summary.csv of an output folder from its records.
+    Summarize(SummarizeArgs),
+    /// Write synthetic trials with known truth.
+    Synth(SynthArgs),
+}
+
+#[derive(Args, Debug, Clone)]
+struct RigArgs {
+    /// Rig profile (JSON).
+    #[arg(long)]
+    rig: Option<PathBuf>,
+    /// Frame rate for frame CSVs without time_s (overrides the rig profile).
+    #[arg(long)]
+    fps: Option<f64>,
+    /// Audio channel to analyse, from 0 (overrides the rig profile).
+    #[arg(long)]
+    channel: Option<usize>,
+    /// Frame CSV column with the motion measure (overrides the rig profile).
+    #[arg(long)]
+    column: Option<String>,
+    /// Frame CSV column for loading onset (overrides the rig profile).
+    #[arg(long)]
+    loading_column: Option<String>,
+}
+
+#[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
+enum Format {
+    Text,
+    Json,
+}
+
+#[derive(Args, Debug)]
+struct TrialArgs {
+    /// Audio file of the trial.
+    #[arg(long)]
+    audio: Option<PathBuf>,
+    /// Frame CSV of the trial.
+    #[arg(long)]
+    frames: Option<PathBuf>,
+    #[command(flatten)]
+    rig: RigArgs,
+    /// Output format.
+    #[arg(long, value_enum, default_value_t = Format::Text)]
+    format: Format,
+}
+
+#[derive(Args, Debug)]
+struct BatchArgs {
+    /// Folder of trials, or a manifest CSV (trial,audio,frames,group).
+    input: PathBuf,
+    /// Output folder (created if missing).
+    #[arg(long)]
+    out: PathBuf,
+    #[command(flatten)]
+    rig: RigArgs,
+    /// Worker threads (default: one per core).
+    #[arg(long)]
+    jobs: Option<usize>,
+    /// Recompute every trial, even those with a current record.
+    #[arg(long)]
+    force: bool,
+    /// Only the trials of shard K of N, e.g. 3/8 (for cluster job arrays).
+    #[arg(long, value_parser = parse_shard)]
+    shard: Option<(u64, u64)>,
+    /// No progress output.
+    #[arg(long, short)]
+    quiet: bool,
+    /// Exit with status 4 when any trial failed.
+    #[arg(long)]
+    strict: bool,
+}
+
+#[derive(Args, Debug)]
+struct SummarizeArgs {
+    /// Output folder of a batch.
+    dir: PathBuf,
+}
+
+#[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
+enum KindArg {
+    Mix,
+    Normal,
+    DoubleClick,
+    Failed,
+    Empty,
+    Clipped,
+    OutOfSync,
+}
+
+#[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
+enum EncodingArg {
+    Int16,
+    Int24,
+    Float32,
+}
+
+#[derive(Args, Debug)]
+struct SynthArgs {
+    /// Output folder (created if missing).
+    #[arg(long)]
+    out: PathBuf,
+    /// Number of trials.
+    #[arg(long, default_value_t = 6)]
+    count: usize,
+    /// Random seed; the same seed gives the same files.
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// Kind of trial; `mix` cycles through every kind.
+    #[arg(long, value_enum, default_value_t = KindArg::Mix)]
+    kind: KindArg,
+    /// Audio sample rate, Hz.
+    #[arg(long, default_value_t = 96_000)]
+    sample_rate_hz: u32,
+    /// Video frame rate, frames per second.
+    #[arg(long, default_value_t = 1000.0)]
+    fps: f64,
+    /// Trial duration, seconds.
+    #[arg(long, default_value_t = 0.4)]
+    duration_s: f64,
+    /// Audio sample encoding.
+    #[arg(long, value_enum, default_value_t = EncodingArg::Int16)]
+    encoding: EncodingArg,
+    /// Audio channels.
+    #[arg(long, default_value_t = 1)]
+    channels: u16,
+    /// Name prefix of the trials.
+    #[arg(long, default_value = "synth")]
+    prefix: String,
+    /// Rig profile whose clock relation places the clicks.
+    #[arg(long)]
+    rig: Option<PathBuf>,
+    /// Write the demo campaign shipped in sample-audio/ (ignores the other options but --out).
+    #[arg(long)]
+    demo: bool,
+}
+
+fn parse_shard(s: &str) -> Result<(u64, u64), String> {
+    let (k, n) = s.split_once('/').ok_or("expected K/N, e.g. 2/8")?;
+    let k: u64 = k
+        .trim()
+        .parse()
+        .map_err(|_| format!("{k:?} is not a shard number"))?;
+    let n: u64 = n
+        .trim()
+        .parse()
+        .map_err(|_| format!("{n:?} is not a shard count"))?;
+    if n == 0 || k == 0 || k > n {
+        return Err(format!("shard {k}/{n}: need 1 <= K <= N"));
+    }
+    Ok((k, n))
+}
+
+const EXIT_TRIAL_FAILED: u8 = 1;
+const EXIT_USAGE: u8 = 2;
+const EXIT_OUTPUT: u8 = 3;
+const EXIT_STRICT: u8 = 4;
+
+fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
+    eprintln!("latchtime: {message}");
+    ExitCode::from(code)
+}
+
+impl RigArgs {
+    fn profile(&self) -> Result<RigProfile, Error> {
+        let mut rig = match &self.rig {
+            Some(path) => RigProfile::from_path(path)?,
+            None => RigProfile::default(),
+        };
+        if self.fps.is_some() {
+            rig.fps = self.fps;
+        }
+        if let Some(c) = self.channel {
+            rig.audio_channel = c;
+        }
+        if self.column.is_some() {
+            rig.frames_column = self.column.clone();
+        }
+        if self.loading_column.is_some() {
+            rig.loading_column = self.loading_column.clone();
+        }
+        rig.validate()?;
+        Ok(rig)
+    }
+}
+
+/// Parses the command line, runs the command and returns the exit code.
+pub fn run() -> ExitCode {
+    let cli = Cli::parse();
+    match cli.command {
+        Command::Trial(args) => run_trial(args),
+        Command::Batch(args) => run_batch(args),
+        Command::Summarize(args) => run_summarize(&args.dir),
+        Command::Synth(args) => run_synth(args),
+    }
+}
+
+fn run_trial(args: TrialArgs) -> ExitCode {
+    let rig = match args.rig.profile() {
+        Ok(r) => r,
+        Err(e) => return fail(EXIT_USAGE, e),
+    };
+    let Some(name_source) = args.audio.as_deref().or(args.frames.as_deref()) else {
+        return fail(EXIT_USAGE, "give --audio, --frames or both");
+    };
+    let spec = TrialSpec {
+        name: pipeline::trial_name(name_source),
+        group: None,
+        audio: args.audio.clone(),
+        frames: args.frames.clone(),
+    };
+    let record = pipeline::analyze_files(&spec, &rig, &mut Scratch::default());
+    match args.format {
+        Format::Json => print!("{}", report::json::record_json(&record)),
+        Format::Text => print!("{}", report::text::render(&record)),
+    }
+    if record.status == Status::Error {
+        ExitCode::from(EXIT_TRIAL_FAILED)
+    } else {
+        ExitCode::SUCCESS
+    }
+}
+
+fn run_batch(args: BatchArgs) -> ExitCode {
+    let rig = match args.rig.profile() {
+        Ok(r) => r,
+        Err(e) => return fail(EXIT_USAGE, e),
+    };
+    let trials = match batch::discover(&args.input) {
+        Ok(t) => t,
+        Err(e) => return fail(EXIT_USAGE, e),
+    };
+    if let Err(e) = std::fs::create_dir_all(&args.out) {
+        return fail(EXIT_OUTPUT, format!("{}: {e}", args.out.display()));
+    }
+    let config = BatchConfig {
+        out_dir: args.out.clone(),
+        rig,
+        jobs: args.jobs.unwrap_or(0),
+        force: args.force,
+        shard: args.shard,
+    };
+    let sink = progress::Bar::new(args.quiet);
+    let outcome = match batch::run(trials, &config, &sink) {
+        Ok(o) => o,
+        Err(e) => return fail(EXIT_OUTPUT, e),
+    };
+    match batch::write_summary(&args.out) {
+        Ok(unreadable) => {
+            for p in unreadable {
+                eprintln!(
+                    "latchtime: {}: not a readable record, left out of summary.csv",
+                    p.display()
+                );
+            }
+        }
+        Err(e) => return fail(EXIT_OUTPUT, e),
+    }
+    if !args.quiet {
+        eprintln!(
+            "latchtime: {} trials ({} analysed, {} current records reused): {} ok, {} flagged, {} errors -> {}",
+            outcome.trials,
+            outcome.analysed,
+            outcome.reused,
+            outcome.ok,
+            outcome.flagged,
+            outcome.errors,
+            args.out.join("summary.csv").display()
+        );
+    }
+    if args.strict && outcome.errors > 0 {
+        return ExitCode::from(EXIT_STRICT);
+    }
+    ExitCode::SUCCESS
+}
+
+fn run_summarize(dir: &Path) -> ExitCode {
+    match batch::write_summary(dir) {
+        Ok(unreadable) => {
+            for p in unreadable {
+                eprintln!(
+                    "latchtime: {}: not a readable record, left out",
+                    p.display()
+                );
+            }
+            ExitCode::SUCCESS
+        }
+        Err(e @ Error::Io { .. }) if !dir.is_dir() => fail(EXIT_USAGE, e),
+        Err(e) => fail(EXIT_OUTPUT, e),
+    }
+}
+
+fn run_synth(args: SynthArgs) -> ExitCode {
+    let rig = match &args.rig {
+        Some(p) => match RigProfile::from_path(p) {
+            Ok(r) => r,
+            Err(e) => return fail(EXIT_USAGE, e),
+        },
+        None => RigProfile::default(),
+    };
+    if let Err(e) = std::fs::create_dir_all(&args.out) {
+        return fail(EXIT_OUTPUT, format!("{}: {e}", args.out.display()));
+    }
+    if args.demo {
+        return match synth::write_demo(&args.out) {
+            Ok(()) => ExitCode::SUCCESS,
+            Err(e) => fail(EXIT_OUTPUT, e),
+        };
+    }
+    let fps_ok = args.fps > 0.0 && args.fps.is_finite();
+    let duration_ok = args.duration_s > 0.0 && args.duration_s <= 60.0;
+    if !fps_ok || !duration_ok
+    {
+        return fail(
+            EXIT_USAGE,
+            "--fps must be positive and --duration-s in (0, 60]",
+        );
+    }
+    if !(1000..=1_000_000).contains(&args.sample_rate_hz) || args.channels == 0 {
+        return fail(
+            EXIT_USAGE,
+            "--sample-rate-hz must be 1000..1000000 and --channels at least 1",
+        );
+    }
+    let config = SynthConfig {
+        sample_rate_hz: args.sample_rate_hz,
+        fps: args.fps,
+        duration_s: args.duration_s,
+        encoding: match args.encoding {
+            EncodingArg::Int16 => SampleEncoding::Int16,
+            EncodingArg::Int24 => SampleEncoding::Int24,
+            EncodingArg::Float32 => SampleEncoding::Float32,
+        },
+        channels: args.channels,
+        ..SynthConfig::default()
+    };
+    for i in 0..args.count {
+        let kind = match args.kind {
+            KindArg::Mix => TrialKind::ALL[i % TrialKind::ALL.len()],
+            KindArg::Normal => TrialKind::Normal,
+            KindArg::DoubleClick => TrialKind::DoubleClick,
+            KindArg::Failed => TrialKind::Failed,
+            KindArg::Empty => TrialKind::Empty,
+            KindArg::Clipped => TrialKind::Clipped,
+            KindArg::OutOfSync => TrialKind::OutOfSync,
+        };
+        let name = format!("{}-{:04}-{}", args.prefix, i + 1, kind.as_str());
+        let seed = args.seed.wrapping_mul(1_000_003).wrapping_add(i as u64);
+        let trial = synth::generate(&name, kind, &config, &rig, seed);
+        if let Err(e) = synth::write_trial(&args.out, &trial) {
+            return fail(EXIT_OUTPUT, e);
+        }
+    }
+    ExitCode::SUCCESS
+}

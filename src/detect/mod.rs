@@ -1,0 +1,261 @@
+//! Detectors: pure functions of a decoded signal and a configuration. They never print, read
+//! files or spawn threads.
+//!
+//! - [`filter`]: zero-phase Butterworth high-pass (second-order sections run forward and
+//!   backward, as `scipy.signal.sosfiltfilt`).
+//! - [`click`]: transients against a robust noise floor, AIC onset picker (Maeda 1985),
+//!   click-versus-thump by spectral centroid.
+//! - [`clock`]: the video frame clock (dropped frames, rounded timestamps).
+//! - [`release`]: latch release and motion peak on the video clock.
+//! - [`loading`]: loading onset by two-phase (hinge) regression.
+//! - [`oscillation`]: per-cycle decay of the post-release oscillation (logarithmic decrement).
+
+pub mod click;
+pub mod clock;
+pub mod filter;
+pub mod loading;
+pub mod oscillation;
+pub mod release;
+
+/// Scale from median absolute deviation to standard deviation for Gaussian noise.
+pub const MAD_TO_SIGMA: f64 = 1.482_602_218_505_602;
+
+/// Median of `values` (NaN-free); 0 for an empty slice. Reorders a scratch copy only.
+pub fn median(values: &[f64]) -> f64 {
+    if values.is_empty() {
+        return 0.0;
+    }
+    let mut v = values.to_vec();
+    median_in_place(&mut v)
+}
+
+/// Median that reorders `v`.
+pub fn median_in_place(v: &mut [f64]) -> f64 {
+    if v.is_empty() {
+        return 0.0;
+    }
+    let mid = v.len() / 2;
+    let (_, m, _) = v.select_nth_unstable_by(mid, f64::total_cmp);
+    let upper = *m;
+    if v.len() % 2 == 1 {
+        upper
+    } else {
+        let lower = v[..mid].iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        0.5 * (lower + upper)
+    }
+}
+
+/// Robust standard deviation: 1.4826 times the median absolute deviation from the median.
+pub fn mad_sigma(values: &[f64]) -> f64 {
+    let m = median(values);
+    let mut dev: Vec<f64> = values.iter().map(|x| (x - m).abs()).collect();
+    MAD_TO_SIGMA * median_in_place(&mut dev)
+}
+
+/// Vertex of the parabola through three points, as (x, y); `None` when they are collinear.
+pub fn parabola_vertex(p0: (f64, f64), p1: (f64, f64), p2: (f64, f64)) -> Option<(f64, f64)> {
+    let (x0, y0) = p0;
+    let (x1, y1) = p1;
+    let (x2, y2) = p2;
+    let d = (x0 - x1) * (x0 - x2) * (x1 - x2);
+    if d == 0.0 {
+        return None;
+    }
+    let a = (x2 * (y1 - y0) + x1 * (y0 - y2) + x0 * (y2 - y1)) / d;
+    let b = (x2 * x2 * (y0 - y1) + x1 * x1 * (y2 - y0) + x0 * x0 * (y1 - y2)) / d;
+    if a == 0.0 || !a.is_finite() {
+        return None;
+    }
+    let c = y0 - a * x0 * x0 - b * x0;
+    let xv = -b / (2.0 * a);
+    Some((xv, c - b * b / (4.0 * a)))
+}
+
+/// Sub-sample extremum around index `k` of (t, y): the parabola vertex when it lies between the
+/// neighbours, else the sample itself.
+pub fn refine_extremum(t: &[f64], y: &[f64], k: usize) -> (f64, f64) {
+    if k == 0 || k + 1 >= y.len() {
+        return (t[k], y[k]);
+    }
+    match parabola_vertex((t[k - 1], y[k - 1]), (t[k], y[k]), (t[k + 1], y[k + 1])) {
+        Some((tv, yv)) if tv >= t[k - 1] && tv <= t[k + 1] => (tv, yv),
+        _ => (t[k], y[k]),
+    }
+}
+
+/// Least-squares slope and intercept of y on x.
+pub fn line_fit(x: &[f64], y: &[f64]) -> Option<(f64, f64)> {
+    let n = x.len() as f64;
+    if x.len() < 2 {
+        return None;
+    }
+    let mx = x.iter().sum::<f64>() / n;
+    let my = y.iter().sum::<f64>() / n;
+    let sxx: f64 = x.iter().map(|a| (a - mx) * (a - mx)).sum();
+    let sxy: f64 = x.iter().zip(y).map(|(a, b)| (a - mx) * (b - my)).sum();
+    if sxx == 0.0 {
+        return None;
+    }
+    let slope = sxy / sxx;
+    Some((slope, my - slope * mx))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn median_of_odd_and_even_lengths() {
+        assert_eq!(median(&[3.0, 1.0, 2.0]), 2.0);
+        assert_eq!(median(&[4.0, 1.0, 3.0, 2.0]), 2.5);
+        assert_eq!(median(&[]), 0.0);
+    }
+
+    #[test]
+    fn mad_sigma_of_a_known_set() {
+        // Deviations from the median 3 are 2,1,0,1,2 -> MAD 1.
+        assert!((mad_sigma(&[1.0, 2.0, 3.0, 4.0, 5.0]) - MAD_TO_SIGMA).abs() < 1e-12);
+    }
+
+    #[test]
+    fn parabola_vertex_recovers_a_known_parabola() {
+        let f = |x: f64| -2.0 * (x - 0.3) * (x - 0.3) + 5.0;
+        let (xv, yv) = parabola_vertex((-1.0, f(-1.0)), (0.0, f(0.0)), (1.0, f(1.0))).unwrap();
+        assert!((xv - 0.3).abs() < 1e-12 && (yv - 5.0).abs() < 1e-12);
+    }
+}
+
+use serde::{Deserialize, Serialize};
+
+use crate::rig::RigProfile;
+use crate::signal::{AudioSignal, FrameSeries};
+
+/// Everything found in one audio channel.
+#[derive(Debug, Clone, PartialEq)]
+pub struct AudioEvents {
+    /// Every transient, clicks and thumps, ascending in time.
+    pub transients: Vec<click::Transient>,
+    /// Index into `transients` of the strongest click.
+    pub main_click: Option<usize>,
+    /// Robust noise standard deviation of the high-passed audio (1.0 = full scale).
+    pub noise_sigma: f64,
+}
+
+impl AudioEvents {
+    /// The clicks only, ascending in time.
+    pub fn clicks(&self) -> impl Iterator<Item = &click::Transient> {
+        self.transients.iter().filter(|t| t.is_click)
+    }
+
+    /// The strongest click.
+    pub fn main(&self) -> Option<&click::Transient> {
+        self.main_click.map(|i| &self.transients[i])
+    }
+}
+
+/// Everything found in one frame series.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct VideoEvents {
+    pub clock: clock::FrameClock,
+    /// Per-frame noise standard deviation of the motion measure.
+    pub noise_sigma: f64,
+    pub motion: Option<release::MotionEvents>,
+    pub loading: Option<loading::LoadingOnset>,
+    pub oscillation: Option<oscillation::Oscillation>,
+}
+
+impl From<&RigProfile> for click::ClickConfig {
+    fn from(rig: &RigProfile) -> Self {
+        click::ClickConfig {
+            highpass_hz: rig.highpass_hz,
+            threshold_sigma: rig.click_threshold_sigma,
+            merge_ms: rig.click_merge_ms,
+            min_centroid_hz: rig.min_click_centroid_hz,
+        }
+    }
+}
+
+impl From<&RigProfile> for release::ReleaseConfig {
+    fn from(rig: &RigProfile) -> Self {
+        release::ReleaseConfig {
+            rate_fraction: rig.release_rate_fraction,
+            min_jump_sigma: rig.release_min_jump_sigma,
+            max_release_ms: rig.max_release_ms,
+        }
+    }
+}
+
+/// Runs the audio detectors.
+pub fn detect_audio(
+    signal: &AudioSignal,
+    rig: &RigProfile,
+    scratch: &mut click::ClickScratch,
+) -> AudioEvents {
+    let scan = click::scan_transients(signal, &rig.into(), scratch);
+    let main_click = scan
+        .transients
+        .iter()
+        .enumerate()
+        .filter(|(_, t)| t.is_click)
+        .max_by(|a, b| a.1.peak_filtered.total_cmp(&b.1.peak_filtered))
+        .map(|(i, _)| i);
+    AudioEvents {
+        transients: scan.transients,
+        main_click,
+        noise_sigma: scan.noise_sigma,
+    }
+}
+
+/// Runs the video detectors.
+pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
+    let clock = clock::frame_clock(series);
+    let t = &clock.time_s;
+    let y = &series.motion;
+    let noise_sigma = release::frame_noise_sigma(y);
+    let motion = release::detect_release(t, y, clock.period_s, noise_sigma, &rig.into());
+    let loading_end = match &motion {
+        Some(m) => m.pre_release_index + 1,
+        None => {
+            // A failed trigger loads and relaxes: the onset search ends at the largest excursion.
+            let l = &series.loading;
+            let head = median(&l[..(l.len() / 10).max(1)]);
+            l.iter()
+                .enumerate()
+                .max_by(|a, b| (a.1 - head).abs().total_cmp(&(b.1 - head).abs()))
+                .map_or(0, |(i, _)| i + 1)
+        }
+    };
+    let loading = loading::detect_loading(t, &series.loading, loading_end, clock.period_s);
+    let mut motion = motion;
+    let fit = motion.as_ref().filter(|m| m.overshoot).and_then(|m| {
+        oscillation::detect_oscillation(
+            t,
+            y,
+            m.motion_peak_index,
+            (m.motion_peak_s, m.motion_peak_value),
+            m.direction,
+            noise_sigma,
+            clock.period_s,
+        )
+    });
+    let oscillation = fit.as_ref().map(|f| f.0.clone());
+    if let (Some(m), Some((_, Some(first_extremum_s)))) = (motion.as_mut(), &fit) {
+        // The fitted first extremum uses the frames of the whole first cycles; the three-frame
+        // parabola is pulled towards the slower side of an asymmetric peak and, at high frame
+        // rates, by noise. Take the fit when it agrees with the parabola to within 1.5 frames
+        // or a tenth of a cycle.
+        let cycle_s = fit.as_ref().map_or(0.0, |f| 1.0 / f.0.frequency_hz);
+        let agree_s = (1.5 * clock.period_s).max(0.1 * cycle_s);
+        if (first_extremum_s - m.motion_peak_s).abs() <= agree_s && *first_extremum_s > m.release_s
+        {
+            m.motion_peak_s = *first_extremum_s;
+        }
+    }
+    VideoEvents {
+        clock,
+        noise_sigma,
+        motion,
+        loading,
+        oscillation,
+    }
+}

@@ -1,0 +1,318 @@
+//! Decay of the post-release oscillation: a damped sinusoid fitted by Levenberg-Marquardt,
+//! started from the logarithmic decrement of the extrema.
+//!
+//! Starting at the motion peak, successive extrema are found with a hysteresis of eight noise
+//! standard deviations (each refined by a parabola through three frames). The peak-to-peak
+//! swings D_k between consecutive extrema do not depend on the unknown rest position, and for a
+//! viscously damped oscillator they shrink by the same factor every half cycle, so
+//! ln D_k = c + k ln(r) / 2, where r is the amplitude ratio per full cycle. r comes from a
+//! least-squares line through ln D_k; the damped frequency from a line through the extremum
+//! times (half a period per step). These start a Levenberg-Marquardt fit (Marquardt 1963) of
+//! y = c + e^{-s t} (a cos wd t + b sin wd t) over the frames of those extrema, which uses
+//! every frame rather than the noisiest ones (picked extrema are biased outwards by noise).
+//! Log decrement delta = s 2 pi / wd = -ln r; damping ratio zeta = delta / sqrt(4 pi^2 +
+//! delta^2) (e.g. Thomson, Theory of Vibration, sec. 2.7).
+
+use serde::{Deserialize, Serialize};
+
+/// The fitted oscillation after the motion peak.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Oscillation {
+    /// Damped frequency, Hz.
+    pub frequency_hz: f64,
+    /// Amplitude ratio over one full cycle (successive peaks of the same sign), 0..1.
+    pub amplitude_ratio: f64,
+    /// Energy kept per full cycle, the amplitude ratio squared.
+    pub energy_retention: f64,
+    /// Logarithmic decrement per full cycle, -ln(amplitude_ratio).
+    pub log_decrement: f64,
+    /// Damping ratio, delta / sqrt(4 pi^2 + delta^2).
+    pub damping_ratio: f64,
+    /// Number of extrema used, the motion peak included.
+    pub extrema_used: usize,
+}
+
+/// Most extrema used: the first few cycles carry the decay; later ones drown in noise.
+const MAX_EXTREMA: usize = 12;
+
+/// Builds the oscillation measures from a per-cycle amplitude ratio and a frequency.
+pub fn from_ratio(frequency_hz: f64, amplitude_ratio: f64, extrema_used: usize) -> Oscillation {
+    let log_decrement = -amplitude_ratio.ln();
+    Oscillation {
+        frequency_hz,
+        amplitude_ratio,
+        energy_retention: amplitude_ratio * amplitude_ratio,
+        log_decrement,
+        damping_ratio: log_decrement
+            / (4.0 * std::f64::consts::PI * std::f64::consts::PI + log_decrement * log_decrement)
+                .sqrt(),
+        extrema_used,
+    }
+}
+
+/// Measures the oscillation that starts at the motion peak (frame `peak_index`, refined time and
+/// value `peak`), moving first in direction `-direction`. Returns the oscillation and the time
+/// of the fitted model's first extremum (a motion peak estimate that uses every frame of the
+/// first cycles). `None` when fewer than three extrema stand out of the noise (overdamped or
+/// too short a record).
+pub fn detect_oscillation(
+    t: &[f64],
+    y: &[f64],
+    peak_index: usize,
+    peak: (f64, f64),
+    direction: f64,
+    noise_sigma: f64,
+    period_s: f64,
+) -> Option<(Oscillation, Option<f64>)> {
+    let delta = (8.0 * noise_sigma).max(f64::MIN_POSITIVE);
+    let mut extrema = vec![peak];
+    // Looking for a minimum (in the sign-adjusted measure) first.
+    let mut looking_for_max = false;
+    let mut ext_idx = peak_index;
+    let mut ext_val = direction * y[peak_index];
+    for i in peak_index + 1..y.len() {
+        let v = direction * y[i];
+        if looking_for_max {
+            if v > ext_val {
+                ext_val = v;
+                ext_idx = i;
+            } else if ext_val - v > delta {
+                extrema.push(super::refine_extremum(t, y, ext_idx));
+                looking_for_max = false;
+                ext_val = v;
+                ext_idx = i;
+            }
+        } else if v < ext_val {
+            ext_val = v;
+            ext_idx = i;
+        } else if v - ext_val > delta {
+            extrema.push(super::refine_extremum(t, y, ext_idx));
+            looking_for_max = true;
+            ext_val = v;
+            ext_idx = i;
+        }
+        if extrema.len() >= MAX_EXTREMA {
+            break;
+        }
+    }
+    // Keep the swings that stand clear of the noise and keep shrinking at a steady pace.
+    let mut swings: Vec<f64> = Vec::new();
+    let mut times = vec![extrema[0].0];
+    for k in 1..extrema.len() {
+        let d = (extrema[k].1 - extrema[k - 1].1).abs();
+        let half = extrema[k].0 - extrema[k - 1].0;
+        let first_half = times.get(1).map(|t1| t1 - times[0]);
+        let steady = first_half.is_none_or(|h| half > 0.5 * h && half < 1.5 * h);
+        let shrinking = swings.last().is_none_or(|last| d <= 1.2 * last);
+        let clear = d >= 8.0 * noise_sigma && swings.first().is_none_or(|d0| d >= 0.03 * d0);
+        if !(steady && shrinking && clear) {
+            break;
+        }
+        swings.push(d);
+        times.push(extrema[k].0);
+    }
+    if swings.len() < 2 {
+        return None;
+    }
+    let k: Vec<f64> = (0..swings.len()).map(|k| k as f64).collect();
+    let ln_d: Vec<f64> = swings.iter().map(|d| d.ln()).collect();
+    let (slope, _) = super::line_fit(&k, &ln_d)?;
+    let idx: Vec<f64> = (0..times.len()).map(|k| k as f64).collect();
+    let (half_period_s, _) = super::line_fit(&idx, &times)?;
+    let ratio0 = (2.0 * slope).exp();
+    // At least four frames per cycle to call it an oscillation and not sampling noise.
+    if !(ratio0 > 0.0 && ratio0 < 1.0) || half_period_s < 2.0 * period_s {
+        return None;
+    }
+    let f0 = 1.0 / (2.0 * half_period_s);
+    let last = extrema.len().min(times.len()) - 1;
+    let rest0 = 0.5 * (extrema[last].1 + extrema[last - 1].1);
+    let end_s = times[times.len() - 1] + half_period_s;
+    let stop = t.partition_point(|v| *v <= end_s).min(t.len());
+    let fitted = (stop > peak_index + 8)
+        .then(|| {
+            fit_damped(
+                &t[peak_index..stop],
+                &y[peak_index..stop],
+                peak.0,
+                [
+                    rest0,
+                    peak.1 - rest0,
+                    0.0,
+                    -ratio0.ln() * f0,
+                    2.0 * std::f64::consts::PI * f0,
+                ],
+            )
+        })
+        .flatten();
+    let (frequency_hz, amplitude_ratio, first_extremum_s) = match fitted {
+        Some(p) => {
+            let [_, a, b, decay, wd] = p;
+            let ratio = (-decay * 2.0 * std::f64::consts::PI / wd).exp();
+            // First extremum of the model: d/dt = 0 where tan(wd t + phi) = -s / wd.
+            let phi = (-b).atan2(a);
+            let mut t_ext = ((-decay / wd).atan() - phi) / wd;
+            let half = std::f64::consts::PI / wd;
+            while t_ext < -0.5 * half {
+                t_ext += half;
+            }
+            while t_ext > 0.5 * half {
+                t_ext -= half;
+            }
+            (
+                wd / (2.0 * std::f64::consts::PI),
+                ratio,
+                Some(peak.0 + t_ext),
+            )
+        }
+        None => (f0, ratio0, None),
+    };
+    if !(amplitude_ratio > 0.0 && amplitude_ratio < 1.0) {
+        return None;
+    }
+    Some((
+        from_ratio(frequency_hz, amplitude_ratio, times.len()),
+        first_extremum_s,
+    ))
+}
+
+/// Levenberg-Marquardt fit of y = c + e^{-s u}(a cos w u + b sin w u), u = t - t0, from the
+/// start [c, a, b, s, w]. `None` when it does not converge to a decaying oscillation.
+pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<[f64; 5]> {
+    let residual_ss = |p: &[f64; 5]| -> f64 {
+        t.iter()
+            .zip(y)
+            .map(|(&t, &y)| {
+                let u = t - t0;
+                let e = (-p[3] * u).exp();
+                let (sn, cs) = (p[4] * u).sin_cos();
+                let r = y - (p[0] + e * (p[1] * cs + p[2] * sn));
+                r * r
+            })
+            .sum()
+    };
+    let mut p = start;
+    let mut cost = residual_ss(&p);
+    let mut lambda = 1e-3;
+    for _ in 0..100 {
+        let mut jtj = [[0.0f64; 5]; 5];
+        let mut jtr = [0.0f64; 5];
+        for (&t, &y) in t.iter().zip(y) {
+            let u = t - t0;
+            let e = (-p[3] * u).exp();
+            let (sn, cs) = (p[4] * u).sin_cos();
+            let osc = p[1] * cs + p[2] * sn;
+            let r = y - (p[0] + e * osc);
+            let j = [
+                1.0,
+                e * cs,
+                e * sn,
+                -u * e * osc,
+                u * e * (-p[1] * sn + p[2] * cs),
+            ];
+            for a in 0..5 {
+                jtr[a] += j[a] * r;
+                for b in 0..5 {
+                    jtj[a][b] += j[a] * j[b];
+                }
+            }
+        }
+        let mut improved = false;
+        while lambda < 1e12 {
+            let mut m = jtj;
+            for (a, row) in m.iter_mut().enumerate() {
+                row[a] += lambda * jtj[a][a].max(1e-300);
+            }
+            let Some(step) = solve5(m, jtr) else {
+                lambda *= 10.0;
+                continue;
+            };
+            let trial: [f64; 5] = std::array::from_fn(|i| p[i] + step[i]);
+            let trial_cost = residual_ss(&trial);
+            if trial_cost.is_finite() && trial_cost < cost {
+                let gain = (cost - trial_cost) / cost.max(1e-300);
+                p = trial;
+                cost = trial_cost;
+                lambda = (lambda * 0.3).max(1e-12);
+                improved = gain > 1e-12;
+                break;
+            }
+            lambda *= 10.0;
+        }
+        if !improved {
+            break;
+        }
+    }
+    (p[3] > 0.0 && p[4] > 0.0 && p.iter().all(|v| v.is_finite())).then_some(p)
+}
+
+/// Solves the 5x5 system m x = v by Gaussian elimination with partial pivoting.
+fn solve5(mut m: [[f64; 5]; 5], mut v: [f64; 5]) -> Option<[f64; 5]> {
+    for col in 0..5 {
+        let pivot = (col..5).max_by(|&a, &b| m[a][col].abs().total_cmp(&m[b][col].abs()))?;
+        if m[pivot][col].abs() < 1e-300 {
+            return None;
+        }
+        m.swap(col, pivot);
+        v.swap(col, pivot);
+        for row in col + 1..5 {
+            let f = m[row][col] / m[col][col];
+            let pivot_row = m[col];
+            for (k, cell) in m[row].iter_mut().enumerate().skip(col) {
+                *cell -= f * pivot_row[k];
+            }
+            v[row] -= f * v[col];
+        }
+    }
+    let mut x = [0.0; 5];
+    for row in (0..5).rev() {
+        let s: f64 = (row + 1..5).map(|k| m[row][k] * x[k]).sum();
+        x[row] = (v[row] - s) / m[row][row];
+    }
+    x.iter().all(|v| v.is_finite()).then_some(x)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Free response from rest: x = e^{-s t} (cos wd t + s/wd sin wd t).
+    fn ring(fps: f64, f_hz: f64, ratio: f64) -> (Vec<f64>, Vec<f64>) {
+        let wd = 2.0 * std::f64::consts::PI * f_hz;
+        let s = -ratio.ln() * f_hz;
+        let t: Vec<f64> = (0..400).map(|k| k as f64 / fps).collect();
+        let y = t
+            .iter()
+            .map(|&t| 50.0 + 20.0 * (-s * t).exp() * ((wd * t).cos() + s / wd * (wd * t).sin()))
+            .collect();
+        (t, y)
+    }
+
+    #[test]
+    fn thomson_example_decrement_comes_back_within_one_percent() {
+        // Thomson, Theory of Vibration with Applications, Example 2.7-1: log decrement 0.429,
+        // zeta = 0.0681.
+        let ratio = (-0.429f64).exp();
+        let (t, y) = ring(20_000.0, 100.0, ratio);
+        let (o, first) = detect_oscillation(&t, &y, 0, (t[0], y[0]), 1.0, 1e-4, 5e-5).unwrap();
+        assert!(first.unwrap().abs() < 1e-6, "{first:?}");
+        assert!(
+            (o.log_decrement - 0.429).abs() < 0.00429,
+            "{}",
+            o.log_decrement
+        );
+        assert!(
+            (o.damping_ratio - 0.0681).abs() < 0.000681,
+            "{}",
+            o.damping_ratio
+        );
+        assert!((o.frequency_hz - 100.0).abs() < 0.5, "{}", o.frequency_hz);
+    }
+
+    #[test]
+    fn overdamped_decay_is_no_oscillation() {
+        let t: Vec<f64> = (0..400).map(|k| k as f64 * 1e-3).collect();
+        let y: Vec<f64> = t.iter().map(|&t| 50.0 + 20.0 * (-t / 0.02).exp()).collect();
+        assert!(detect_oscillation(&t, &y, 0, (0.0, 70.0), 1.0, 0.01, 1e-3).is_none());
+    }
+}

@@ -1,0 +1,353 @@
+//! Measurement: turns detected events into the trial record. Timing (loading and release
+//! durations), the clock cross-check between audio and video (acoustic delay from microphone
+//! distance and air temperature), the power-amplification ratio with its efficiency factor, and
+//! the flags a person must look at. Definitions are in the README, field by field.
+
+use serde::{Deserialize, Serialize};
+
+use crate::detect::{AudioEvents, VideoEvents};
+use crate::rig::{EfficiencyModel, RigProfile};
+
+/// Outcome of one trial.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Status {
+    /// Measured, nothing to look at.
+    Ok,
+    /// Measured, with at least one flag.
+    Flagged,
+    /// Could not be measured; `error` says why.
+    Error,
+}
+
+/// Conditions a person should look at.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Flag {
+    /// Audio present but no click found.
+    NoClick,
+    /// A second click at or above `double_click_db` re the strongest.
+    DoubleClick,
+    /// Frames present but no loading onset found.
+    NoLoading,
+    /// Frames present but no abrupt change (latch never released).
+    NoRelease,
+    /// The main click reaches digital full scale.
+    Clipped,
+    /// Audio and video disagree beyond the sync tolerance.
+    SyncMismatch,
+    /// Main click SNR below `low_snr_db`.
+    LowSnr,
+    /// Frames missing from the video.
+    FrameGaps,
+}
+
+impl Flag {
+    /// The flag's name as written in records and tables.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Flag::NoClick => "no_click",
+            Flag::DoubleClick => "double_click",
+            Flag::NoLoading => "no_loading",
+            Flag::NoRelease => "no_release",
+            Flag::Clipped => "clipped",
+            Flag::SyncMismatch => "sync_mismatch",
+            Flag::LowSnr => "low_snr",
+            Flag::FrameGaps => "frame_gaps",
+        }
+    }
+}
+
+/// Measures of the main click.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ClickMeasures {
+    pub peak_dbfs: f64,
+    pub peak_spl_db: Option<f64>,
+    pub duration_ms: f64,
+    pub rise_ms: f64,
+    pub centroid_hz: f64,
+    pub snr_db: f64,
+}
+
+/// Clock cross-check between audio and video.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct SyncCheck {
+    /// Observed audio-minus-video clock offset: click onset minus acoustic delay minus video
+    /// latch release, ms.
+    pub offset_ms: f64,
+    /// Sound travel time from mechanism to microphone, ms.
+    pub acoustic_delay_ms: f64,
+    /// Observed offset minus the rig's `video_offset_s`, ms.
+    pub residual_ms: f64,
+    /// Largest |residual_ms| accepted, ms.
+    pub tolerance_ms: f64,
+}
+
+pub use crate::detect::oscillation::Oscillation;
+
+/// Where the inputs of a record came from, for resume and audit.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize, Default)]
+pub struct Provenance {
+    pub tool_version: String,
+    pub audio_sha256: Option<String>,
+    pub frames_sha256: Option<String>,
+    pub settings_sha256: String,
+}
+
+/// One trial's results. Times in seconds on the clock their name says, durations in ms, null
+/// where the trial's streams do not allow the measure.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct TrialRecord {
+    pub trial: String,
+    pub group: Option<String>,
+    pub status: Status,
+    pub flags: Vec<Flag>,
+    pub error: Option<String>,
+    pub audio_file: Option<String>,
+    pub frames_file: Option<String>,
+    pub click_onset_s: Option<f64>,
+    pub clicks_s: Option<Vec<f64>>,
+    pub thumps_s: Option<Vec<f64>>,
+    pub loading_onset_s: Option<f64>,
+    pub loading_onset_uncertainty_ms: Option<f64>,
+    pub latch_release_s: Option<f64>,
+    pub latch_release_video_s: Option<f64>,
+    pub motion_peak_s: Option<f64>,
+    pub loading_ms: Option<f64>,
+    pub release_ms: Option<f64>,
+    pub amplification_lossless: Option<f64>,
+    pub efficiency: Option<f64>,
+    pub amplification: Option<f64>,
+    pub oscillation: Option<Oscillation>,
+    pub click: Option<ClickMeasures>,
+    pub sync: Option<SyncCheck>,
+    pub audio_sample_rate_hz: Option<f64>,
+    pub video_fps: Option<f64>,
+    pub missing_frames: Option<u64>,
+    pub provenance: Provenance,
+}
+
+impl TrialRecord {
+    /// A record with every measure null.
+    pub fn empty(trial: &str, group: Option<&str>) -> Self {
+        TrialRecord {
+            trial: trial.to_string(),
+            group: group.map(str::to_string),
+            status: Status::Ok,
+            flags: Vec::new(),
+            error: None,
+            audio_file: None,
+            frames_file: None,
+            click_onset_s: None,
+            clicks_s: None,
+            thumps_s: None,
+            loading_onset_s: None,
+            loading_onset_uncertainty_ms: None,
+            latch_release_s: None,
+            latch_release_video_s: None,
+            motion_peak_s: None,
+            loading_ms: None,
+            release_ms: None,
+            amplification_lossless: None,
+            efficiency: None,
+            amplification: None,
+            oscillation: None,
+            click: None,
+            sync: None,
+            audio_sample_rate_hz: None,
+            video_fps: None,
+            missing_frames: None,
+            provenance: Provenance::default(),
+        }
+    }
+
+    /// An error record: status `error`, the message, every measure null.
+    pub fn failed(trial: &str, group: Option<&str>, message: String) -> Self {
+        TrialRecord {
+            status: Status::Error,
+            error: Some(message),
+            ..TrialRecord::empty(trial, group)
+        }
+    }
+
+    /// Flag names joined by ';'.
+    pub fn flags_joined(&self) -> String {
+        self.flags
+            .iter()
+            .map(|f| f.as_str())
+            .collect::<Vec<_>>()
+            .join(";")
+    }
+}
+
+/// Fills `record` with the measures of the detected events.
+pub fn measure(
+    record: &mut TrialRecord,
+    audio: Option<(&AudioEvents, f64)>,
+    video: Option<&VideoEvents>,
+    rig: &RigProfile,
+) {
+    let mut flags = Vec::new();
+    let delay_s = rig.acoustic_delay_s();
+    if let Some((events, sample_rate_hz)) = audio {
+        record.audio_sample_rate_hz = Some(sample_rate_hz);
+        record.clicks_s = Some(events.clicks().map(|c| c.onset_s).collect());
+        record.thumps_s = Some(
+            events
+                .transients
+                .iter()
+                .filter(|t| !t.is_click)
+                .map(|t| t.onset_s)
+                .collect(),
+        );
+        match events.main() {
+            None => flags.push(Flag::NoClick),
+            Some(main) => {
+                record.click_onset_s = Some(main.onset_s);
+                let floor = main.peak_filtered * 10f64.powf(rig.double_click_db / 20.0);
+                if events.clicks().filter(|c| c.peak_filtered >= floor).count() > 1 {
+                    flags.push(Flag::DoubleClick);
+                }
+                if main.clipped {
+                    flags.push(Flag::Clipped);
+                }
+                if main.snr_db < rig.low_snr_db {
+                    flags.push(Flag::LowSnr);
+                }
+                let peak_fs = 10f64.powf(main.peak_dbfs / 20.0);
+                record.click = Some(ClickMeasures {
+                    peak_dbfs: main.peak_dbfs,
+                    // SPL re 20 uPa (ISO 1683) of the peak pressure.
+                    peak_spl_db: rig.pressure_pa(peak_fs).map(|p| 20.0 * (p / 20e-6).log10()),
+                    duration_ms: main.duration_ms,
+                    rise_ms: main.rise_ms,
+                    centroid_hz: main.centroid_hz,
+                    snr_db: main.snr_db,
+                });
+            }
+        }
+    }
+    if let Some(video) = video {
+        let period = video.clock.period_s;
+        record.video_fps = Some(1.0 / period);
+        record.missing_frames = Some(video.clock.missing_frames);
+        if video.clock.missing_frames > 0 {
+            flags.push(Flag::FrameGaps);
+        }
+        record.loading_onset_s = video.loading.as_ref().map(|l| l.onset_s);
+        record.loading_onset_uncertainty_ms = video.loading.as_ref().map(|l| l.uncertainty_ms);
+        if video.loading.is_none() {
+            flags.push(Flag::NoLoading);
+        }
+        match &video.motion {
+            None => flags.push(Flag::NoRelease),
+            Some(m) => {
+                record.latch_release_video_s = Some(m.release_s);
+                record.latch_release_s = Some(m.release_s);
+                record.motion_peak_s = Some(m.motion_peak_s);
+                if let Some(click_s) = record.click_onset_s {
+                    let tolerance_s = rig.sync_tolerance_frames * period;
+                    let offset_s = click_s - delay_s - m.release_s;
+                    let residual_s = offset_s - rig.video_offset_s;
+                    record.sync = Some(SyncCheck {
+                        offset_ms: offset_s * 1e3,
+                        acoustic_delay_ms: delay_s * 1e3,
+                        residual_ms: residual_s * 1e3,
+                        tolerance_ms: tolerance_s * 1e3,
+                    });
+                    if residual_s.abs() > tolerance_s {
+                        flags.push(Flag::SyncMismatch);
+                    } else if record
+                        .motion_peak_s
+                        .is_some_and(|p| p > click_s - delay_s - rig.video_offset_s)
+                    {
+                        // The clocks agree: the click times the release far more finely than
+                        // the frames do.
+                        record.latch_release_s = Some(click_s - delay_s - rig.video_offset_s);
+                    }
+                }
+            }
+        }
+        record.oscillation = video.oscillation.clone();
+    }
+    if let (Some(release), Some(peak)) = (record.latch_release_s, record.motion_peak_s) {
+        record.release_ms = Some((peak - release) * 1e3);
+        if let Some(onset) = record.loading_onset_s {
+            if onset < release {
+                record.loading_ms = Some((release - onset) * 1e3);
+            }
+        }
+    }
+    if let (Some(loading), Some(release)) = (record.loading_ms, record.release_ms) {
+        if release > 0.0 {
+            let lossless = loading / release;
+            record.amplification_lossless = Some(lossless);
+            record.efficiency = match rig.efficiency_model {
+                EfficiencyModel::Energy => record.oscillation.as_ref().map(|o| o.energy_retention),
+                EfficiencyModel::Amplitude => {
+                    record.oscillation.as_ref().map(|o| o.amplitude_ratio)
+                }
+                EfficiencyModel::None => Some(1.0),
+            };
+            record.amplification = record.efficiency.map(|e| e * lossless);
+        }
+    }
+    flags.sort();
+    flags.dedup();
+    record.status = if flags.is_empty() {
+        Status::Ok
+    } else {
+        Status::Flagged
+    };
+    record.flags = flags;
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::detect::oscillation::from_ratio;
+
+    #[test]
+    fn amplification_rules_of_thumb() {
+        // Common practice: 84 ms loading with a 4 ms release gives a lossless ratio of 21;
+        // with a per-cycle amplitude ratio of 0.63 as efficiency about 13, with the energy
+        // model (0.63^2) about 8.3.
+        let video = VideoEvents {
+            clock: crate::detect::clock::FrameClock {
+                time_s: vec![],
+                period_s: 1e-3,
+                missing_frames: 0,
+                uniform: true,
+                max_residual_s: 0.0,
+            },
+            noise_sigma: 0.1,
+            motion: Some(crate::detect::release::MotionEvents {
+                release_s: 0.100,
+                pre_release_index: 99,
+                motion_peak_s: 0.104,
+                motion_peak_index: 104,
+                motion_peak_value: 1.0,
+                direction: 1.0,
+                peak_rate_per_s: 1.0,
+                jump: 1.0,
+                overshoot: true,
+            }),
+            loading: Some(crate::detect::loading::LoadingOnset {
+                onset_s: 0.016,
+                uncertainty_ms: 1.0,
+                drift_per_s: -1.0,
+                f_statistic: 100.0,
+            }),
+            oscillation: Some(from_ratio(50.0, 0.63, 5)),
+        };
+        let mut rig = RigProfile::default();
+        let mut r = TrialRecord::empty("t", None);
+        measure(&mut r, None, Some(&video), &rig);
+        assert!((r.amplification_lossless.unwrap() - 21.0).abs() < 1e-9);
+        assert!((r.amplification.unwrap() - 8.3).abs() < 0.05);
+        rig.efficiency_model = EfficiencyModel::Amplitude;
+        measure(&mut r, None, Some(&video), &rig);
+        assert!((r.amplification.unwrap() - 13.2).abs() < 0.05);
+        assert_eq!(r.status, Status::Ok);
+    }
+}

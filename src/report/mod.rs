@@ -1,0 +1,6 @@
+//! Output formats, kept apart from measurement: one module per format. Every format is
+//! deterministic (no timestamps, fixed float formatting) so outputs can be compared byte for byte.
+
+pub mod csv;
+pub mod json;
+pub mod text;

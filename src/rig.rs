@@ -1,0 +1,274 @@
+//! Rig profiles: the fixed facts of a recording set-up (frame rate, clock offset, microphone
+//! distance, air temperature) and the detector settings a lab may tune. Profiles are JSON; an
+//! unknown field is an error naming it, and every value is validated when the profile is built so
+//! that detection cannot fail on a valid profile.
+
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+
+/// How the efficiency factor of the power-amplification ratio is estimated from the
+/// post-release oscillation.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "snake_case")]
+pub enum EfficiencyModel {
+    /// Energy retained per full cycle, the amplitude ratio squared. Default: stored elastic
+    /// energy goes with amplitude squared, so this is the physically sound proxy.
+    #[default]
+    Energy,
+    /// The per-cycle amplitude ratio itself.
+    Amplitude,
+    /// No loss correction: efficiency 1.
+    None,
+}
+
+/// A rig profile. Field meanings, units and defaults are listed in `calibration/README.md`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct RigProfile {
+    /// Nominal camera frame rate, frames per second; used when the frame CSV has no `time_s`.
+    pub fps: Option<f64>,
+    /// Audio clock minus video clock, seconds: an event at video time 0 is at audio time
+    /// `video_offset_s` before sound travel.
+    pub video_offset_s: f64,
+    /// Distance from the mechanism to the microphone, metres.
+    pub mic_distance_m: f64,
+    /// Air temperature, degrees Celsius, for the speed of sound.
+    pub air_temperature_c: f64,
+    /// Zero-based audio channel to analyse.
+    pub audio_channel: usize,
+    /// Column of the frame CSV with the motion measure; default: first numeric non-time column.
+    pub frames_column: Option<String>,
+    /// Column of the frame CSV used for loading onset; default: the motion column.
+    pub loading_column: Option<String>,
+    /// Microphone sensitivity, millivolts per pascal (for peak SPL).
+    pub mic_sensitivity_mv_per_pa: Option<f64>,
+    /// Preamplifier gain, dB (for peak SPL).
+    pub preamp_gain_db: Option<f64>,
+    /// Peak input voltage that the recorder maps to digital full scale, volts (for peak SPL).
+    pub adc_full_scale_v: Option<f64>,
+    /// Clock agreement tolerance in frame periods (default 2: one frame of uncertainty on each
+    /// of the release and the frame timing). Used as 1 ms when there is no frame rate.
+    pub sync_tolerance_frames: f64,
+    /// A second click at or above this level re the strongest click flags `double_click`, dB.
+    pub double_click_db: f64,
+    /// Clicks with SNR below this are flagged `low_snr`, dB.
+    pub low_snr_db: f64,
+    /// Efficiency model for the amplification ratio.
+    pub efficiency_model: EfficiencyModel,
+    /// Audio high-pass corner before click detection, Hz (zero-phase 4th-order Butterworth).
+    pub highpass_hz: f64,
+    /// Click trigger level, in robust noise standard deviations of the filtered audio.
+    pub click_threshold_sigma: f64,
+    /// A transient whose spectral centroid is below this is a thump, not a click, Hz.
+    pub min_click_centroid_hz: f64,
+    /// Threshold crossings closer than this belong to one transient, ms.
+    pub click_merge_ms: f64,
+    /// Latch release is where the motion rate rises through this fraction of its peak.
+    pub release_rate_fraction: f64,
+    /// Minimum size of the fast phase, in per-frame noise standard deviations; less means no
+    /// release (a failed trigger).
+    pub release_min_jump_sigma: f64,
+    /// Longest fast phase (release to motion peak) still taken as a release, ms.
+    pub max_release_ms: f64,
+}
+
+impl Default for RigProfile {
+    fn default() -> Self {
+        RigProfile {
+            fps: None,
+            video_offset_s: 0.0,
+            mic_distance_m: 0.0,
+            air_temperature_c: 20.0,
+            audio_channel: 0,
+            frames_column: None,
+            loading_column: None,
+            mic_sensitivity_mv_per_pa: None,
+            preamp_gain_db: None,
+            adc_full_scale_v: None,
+            sync_tolerance_frames: 2.0,
+            double_click_db: -12.0,
+            low_snr_db: 20.0,
+            efficiency_model: EfficiencyModel::Energy,
+            highpass_hz: 1000.0,
+            click_threshold_sigma: 8.0,
+            min_click_centroid_hz: 2000.0,
+            click_merge_ms: 1.0,
+            release_rate_fraction: 0.1,
+            release_min_jump_sigma: 15.0,
+            max_release_ms: 25.0,
+        }
+    }
+}
+
+/// Speed of sound in dry air, m/s, at `air_temperature_c` degrees Celsius:
+/// c = 331.3 * sqrt(1 + T / 273.15). Humidity, which raises c by 0.1-0.6 %, is ignored.
+pub fn speed_of_sound_m_per_s(air_temperature_c: f64) -> f64 {
+    331.3 * (1.0 + air_temperature_c / 273.15).sqrt()
+}
+
+impl RigProfile {
+    /// Reads and validates a profile from a JSON file.
+    pub fn from_path(path: &Path) -> Result<Self> {
+        let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+        Self::from_json(&text).map_err(|e| match e {
+            Error::InvalidConfig { field, reason } => {
+                Error::malformed(path, format!("rig profile field `{field}`: {reason}"))
+            }
+            Error::Usage(reason) => Error::malformed(path, reason),
+            other => other,
+        })
+    }
+
+    /// Parses and validates a profile from JSON text.
+    pub fn from_json(text: &str) -> Result<Self> {
+        let rig: RigProfile = serde_json::from_str(text)
+            .map_err(|e| Error::Usage(format!("rig profile is not valid: {e}")))?;
+        rig.validate()?;
+        Ok(rig)
+    }
+
+    /// Checks every value; called by the constructors and after command-line overrides.
+    pub fn validate(&self) -> Result<()> {
+        fn finite(field: &str, v: f64) -> Result<()> {
+            if v.is_finite() {
+                Ok(())
+            } else {
+                Err(Error::config(field, format!("{v} is not a finite number")))
+            }
+        }
+        fn positive(field: &str, v: f64) -> Result<()> {
+            finite(field, v)?;
+            if v > 0.0 {
+                Ok(())
+            } else {
+                Err(Error::config(field, format!("{v} must be greater than 0")))
+            }
+        }
+        if let Some(fps) = self.fps {
+            positive("fps", fps)?;
+        }
+        finite("video_offset_s", self.video_offset_s)?;
+        finite("mic_distance_m", self.mic_distance_m)?;
+        if self.mic_distance_m < 0.0 || self.mic_distance_m > 1000.0 {
+            return Err(Error::config(
+                "mic_distance_m",
+                format!("{} m is outside 0..1000 m", self.mic_distance_m),
+            ));
+        }
+        finite("air_temperature_c", self.air_temperature_c)?;
+        if !(-100.0..=100.0).contains(&self.air_temperature_c) {
+            return Err(Error::config(
+                "air_temperature_c",
+                format!("{} C is outside -100..100 C", self.air_temperature_c),
+            ));
+        }
+        if let Some(v) = self.mic_sensitivity_mv_per_pa {
+            positive("mic_sensitivity_mv_per_pa", v)?;
+        }
+        if let Some(v) = self.preamp_gain_db {
+            finite("preamp_gain_db", v)?;
+        }
+        if let Some(v) = self.adc_full_scale_v {
+            positive("adc_full_scale_v", v)?;
+        }
+        positive("sync_tolerance_frames", self.sync_tolerance_frames)?;
+        finite("double_click_db", self.double_click_db)?;
+        if self.double_click_db > 0.0 {
+            return Err(Error::config(
+                "double_click_db",
+                "must be 0 dB or below (a level relative to the strongest click)",
+            ));
+        }
+        finite("low_snr_db", self.low_snr_db)?;
+        positive("highpass_hz", self.highpass_hz)?;
+        positive("click_threshold_sigma", self.click_threshold_sigma)?;
+        finite("min_click_centroid_hz", self.min_click_centroid_hz)?;
+        positive("click_merge_ms", self.click_merge_ms)?;
+        positive("release_rate_fraction", self.release_rate_fraction)?;
+        if self.release_rate_fraction >= 1.0 {
+            return Err(Error::config("release_rate_fraction", "must be below 1"));
+        }
+        positive("release_min_jump_sigma", self.release_min_jump_sigma)?;
+        positive("max_release_ms", self.max_release_ms)?;
+        Ok(())
+    }
+
+    /// Acoustic travel time from the mechanism to the microphone, seconds.
+    pub fn acoustic_delay_s(&self) -> f64 {
+        self.mic_distance_m / speed_of_sound_m_per_s(self.air_temperature_c)
+    }
+
+    /// Audio time at which an event at video time `video_s` is heard.
+    pub fn audio_time_s(&self, video_s: f64) -> f64 {
+        video_s + self.video_offset_s + self.acoustic_delay_s()
+    }
+
+    /// Peak sound pressure in pascals for a peak level `peak_fs` (1.0 = full scale), when the
+    /// profile gives the microphone sensitivity, gain and recorder full-scale voltage.
+    pub fn pressure_pa(&self, peak_fs: f64) -> Option<f64> {
+        let sens_v_per_pa = self.mic_sensitivity_mv_per_pa? / 1000.0;
+        let gain = 10f64.powf(self.preamp_gain_db? / 20.0);
+        let volts = peak_fs * self.adc_full_scale_v?;
+        Some(volts / gain / sens_v_per_pa)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn speed_of_sound_matches_handbook_values() {
+        // Acoustics handbook values for dry air (e.g. Kinsler et al., Fundamentals of Acoustics):
+        // 331.3 m/s at 0 C, 343.2 m/s at 20 C, 346.1 m/s at 25 C.
+        assert!((speed_of_sound_m_per_s(0.0) - 331.3).abs() < 0.05);
+        assert!((speed_of_sound_m_per_s(20.0) - 343.2).abs() < 0.05);
+        assert!((speed_of_sound_m_per_s(25.0) - 346.1).abs() < 0.05);
+    }
+
+    #[test]
+    fn unknown_field_is_an_error_naming_it() {
+        let err = RigProfile::from_json(r#"{"fps": 1000, "mic_distnce_m": 0.3}"#).unwrap_err();
+        assert!(err.to_string().contains("mic_distnce_m"), "{err}");
+    }
+
+    #[test]
+    fn wrong_type_is_an_error() {
+        let err = RigProfile::from_json(r#"{"fps": "fast"}"#).unwrap_err();
+        assert!(err.to_string().contains("fps") || err.to_string().contains("invalid type"));
+    }
+
+    #[test]
+    fn negative_fps_is_rejected_with_field_name() {
+        let err = RigProfile::from_json(r#"{"fps": -5}"#).unwrap_err();
+        assert!(err.to_string().contains("fps"), "{err}");
+    }
+
+    #[test]
+    fn demo_profile_fields_parse() {
+        let rig = RigProfile::from_json(
+            r#"{ "fps": 1000.0, "video_offset_s": 0.0, "mic_distance_m": 0.30,
+                 "air_temperature_c": 20.0, "audio_channel": 0 }"#,
+        )
+        .unwrap();
+        assert_eq!(rig.fps, Some(1000.0));
+        // 0.30 m / 343.21 m/s = 0.874 ms.
+        assert!((rig.acoustic_delay_s() * 1e3 - 0.8741).abs() < 1e-3);
+    }
+
+    #[test]
+    fn one_pascal_peak_maps_through_sensitivity_and_gain() {
+        let rig = RigProfile {
+            mic_sensitivity_mv_per_pa: Some(50.0),
+            preamp_gain_db: Some(20.0),
+            adc_full_scale_v: Some(5.0),
+            ..RigProfile::default()
+        };
+        // 1 Pa -> 50 mV -> x10 gain -> 0.5 V -> 0.1 of 5 V full scale.
+        let p = rig.pressure_pa(0.1).unwrap();
+        assert!((p - 1.0).abs() < 1e-12);
+    }
+}
