@@ -246,7 +246,8 @@ pub fn measure(
                 record.latch_release_s = Some(m.release_s);
                 record.motion_peak_s = Some(m.motion_peak_s);
                 if let Some(click_s) = record.click_onset_s {
-                    let tolerance_s = rig.sync_tolerance_frames * period;
+                    let tolerance_s =
+                        (rig.sync_tolerance_frames * period).max(rig.sync_tolerance_min_ms * 1e-3);
                     let offset_s = click_s - delay_s - m.release_s;
                     let residual_s = offset_s - rig.video_offset_s;
                     record.sync = Some(SyncCheck {

@@ -50,8 +50,11 @@ pub struct RigProfile {
     /// Peak input voltage that the recorder maps to digital full scale, volts (for peak SPL).
     pub adc_full_scale_v: Option<f64>,
     /// Clock agreement tolerance in frame periods (default 2: one frame of uncertainty on each
-    /// of the release and the frame timing). Used as 1 ms when there is no frame rate.
+    /// of the release and the frame timing), never below `sync_tolerance_min_ms`.
     pub sync_tolerance_frames: f64,
+    /// Smallest clock agreement tolerance, ms (default 0.25 ms: at tens of thousands of frames
+    /// per second the video release cannot be timed to two frames through noise).
+    pub sync_tolerance_min_ms: f64,
     /// A second click at or above this level re the strongest click flags `double_click`, dB.
     pub double_click_db: f64,
     /// Clicks with SNR below this are flagged `low_snr`, dB.
@@ -89,6 +92,7 @@ impl Default for RigProfile {
             preamp_gain_db: None,
             adc_full_scale_v: None,
             sync_tolerance_frames: 2.0,
+            sync_tolerance_min_ms: 0.25,
             double_click_db: -12.0,
             low_snr_db: 20.0,
             efficiency_model: EfficiencyModel::Energy,
@@ -175,6 +179,7 @@ impl RigProfile {
             positive("adc_full_scale_v", v)?;
         }
         positive("sync_tolerance_frames", self.sync_tolerance_frames)?;
+        positive("sync_tolerance_min_ms", self.sync_tolerance_min_ms)?;
         finite("double_click_db", self.double_click_db)?;
         if self.double_click_db > 0.0 {
             return Err(Error::config(

@@ -347,8 +347,7 @@ fn run_synth(args: SynthArgs) -> ExitCode {
     }
     let fps_ok = args.fps > 0.0 && args.fps.is_finite();
     let duration_ok = args.duration_s > 0.0 && args.duration_s <= 60.0;
-    if !fps_ok || !duration_ok
-    {
+    if !fps_ok || !duration_ok {
         return fail(
             EXIT_USAGE,
             "--fps must be positive and --duration-s in (0, 60]",

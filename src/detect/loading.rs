@@ -85,20 +85,29 @@ pub fn detect_loading(t: &[f64], y: &[f64], end: usize, period_s: f64) -> Option
             }
         }
     }
+    // The interval's ends are interpolated between frames, where the profile crosses the limit.
     let limit = sse_min.max(1e-300) * (3.84 / nf).exp();
-    let inside: Vec<f64> = sse
-        .iter()
-        .enumerate()
-        .filter(|(_, v)| v.is_some_and(|v| v.0 <= limit))
-        .map(|(k, _)| tt[k])
-        .collect();
-    let lo = inside.iter().copied().fold(f64::INFINITY, f64::min);
-    let hi = inside.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-    let half_width_s = if lo.is_finite() && hi.is_finite() {
-        0.5 * (hi - lo)
-    } else {
-        0.0
+    let profile = |k: usize| sse[k].map(|v| v.0);
+    let edge = |step: isize| -> f64 {
+        let mut k = k_best;
+        loop {
+            let next = k as isize + step;
+            if next < 0 || next as usize >= m {
+                return tt[k];
+            }
+            let next = next as usize;
+            match profile(next) {
+                Some(v) if v <= limit => k = next,
+                Some(v) => {
+                    let here = profile(k).unwrap_or(sse_min);
+                    let f = ((limit - here) / (v - here)).clamp(0.0, 1.0);
+                    return tt[k] + f * (tt[next] - tt[k]);
+                }
+                None => return tt[k],
+            }
+        }
     };
+    let half_width_s = 0.5 * (edge(1) - edge(-1));
     Some(LoadingOnset {
         onset_s: onset + t0,
         uncertainty_ms: half_width_s.max(0.5 * period_s) * 1e3,

@@ -83,6 +83,33 @@ pub fn refine_extremum(t: &[f64], y: &[f64], k: usize) -> (f64, f64) {
     }
 }
 
+/// Solves the N x N system m x = v by Gaussian elimination with partial pivoting; `None` when
+/// it is singular.
+pub fn solve_linear<const N: usize>(mut m: [[f64; N]; N], mut v: [f64; N]) -> Option<[f64; N]> {
+    for col in 0..N {
+        let pivot = (col..N).max_by(|&a, &b| m[a][col].abs().total_cmp(&m[b][col].abs()))?;
+        if m[pivot][col].abs() < 1e-300 {
+            return None;
+        }
+        m.swap(col, pivot);
+        v.swap(col, pivot);
+        for row in col + 1..N {
+            let f = m[row][col] / m[col][col];
+            let pivot_row = m[col];
+            for (k, cell) in m[row].iter_mut().enumerate().skip(col) {
+                *cell -= f * pivot_row[k];
+            }
+            v[row] -= f * v[col];
+        }
+    }
+    let mut x = [0.0; N];
+    for row in (0..N).rev() {
+        let s: f64 = (row + 1..N).map(|k| m[row][k] * x[k]).sum();
+        x[row] = (v[row] - s) / m[row][row];
+    }
+    x.iter().all(|v| v.is_finite()).then_some(x)
+}
+
 /// Least-squares slope and intercept of y on x.
 pub fn line_fit(x: &[f64], y: &[f64]) -> Option<(f64, f64)> {
     let n = x.len() as f64;

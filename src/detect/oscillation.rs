@@ -223,7 +223,7 @@ pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<[f64
             for (a, row) in m.iter_mut().enumerate() {
                 row[a] += lambda * jtj[a][a].max(1e-300);
             }
-            let Some(step) = solve5(m, jtr) else {
+            let Some(step) = super::solve_linear(m, jtr) else {
                 lambda *= 10.0;
                 continue;
             };
@@ -244,32 +244,6 @@ pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<[f64
         }
     }
     (p[3] > 0.0 && p[4] > 0.0 && p.iter().all(|v| v.is_finite())).then_some(p)
-}
-
-/// Solves the 5x5 system m x = v by Gaussian elimination with partial pivoting.
-fn solve5(mut m: [[f64; 5]; 5], mut v: [f64; 5]) -> Option<[f64; 5]> {
-    for col in 0..5 {
-        let pivot = (col..5).max_by(|&a, &b| m[a][col].abs().total_cmp(&m[b][col].abs()))?;
-        if m[pivot][col].abs() < 1e-300 {
-            return None;
-        }
-        m.swap(col, pivot);
-        v.swap(col, pivot);
-        for row in col + 1..5 {
-            let f = m[row][col] / m[col][col];
-            let pivot_row = m[col];
-            for (k, cell) in m[row].iter_mut().enumerate().skip(col) {
-                *cell -= f * pivot_row[k];
-            }
-            v[row] -= f * v[col];
-        }
-    }
-    let mut x = [0.0; 5];
-    for row in (0..5).rev() {
-        let s: f64 = (row + 1..5).map(|k| m[row][k] * x[k]).sum();
-        x[row] = (v[row] - s) / m[row][row];
-    }
-    x.iter().all(|v| v.is_finite()).then_some(x)
 }
 
 #[cfg(test)]

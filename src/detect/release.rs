@@ -9,10 +9,13 @@
 //! `max_release_ms` (a slow relaxation of a failed trigger is not a release).
 //!
 //! Definitions (see README):
-//! - latch release: the time at which the rate, coming up to its peak, crosses
-//!   `rate_fraction` (default 10 %) of the peak rate: from a straight line through the rate
-//!   samples between 20 % and 80 % of the peak when there are three or more (noise averages
-//!   out), else interpolated linearly between the two rate samples either side.
+//! - latch release: the start of the fast phase, where the accelerating motion begins. With
+//!   three or more frames on the rising edge (rate below 70 % of its peak), a straight line (the
+//!   slow drift before) joined by a parabola (constant initial acceleration, as a spring let go
+//!   from rest) is fitted by least squares and its joint is the release. With fewer frames (low
+//!   frame rates), the time at which the rate crosses `rate_fraction` (default 10 %) of its
+//!   peak: from a straight line through the rate samples between 20 % and 80 % of the peak
+//!   when there are three or more, else interpolated between the two rate samples either side.
 //!   A latch that lets go progressively creeps before it snaps; this definition times the snap.
 //! - motion peak: the first extremum after the release in the direction of the motion, found
 //!   with a hysteresis of eight noise standard deviations (or 5 % of the jump) and refined by a parabola through the
@@ -68,6 +71,61 @@ pub struct MotionEvents {
 
 /// Noise standard deviations the largest change over the rate window must reach.
 const MIN_WINDOW_SIGMA: f64 = 8.0;
+
+/// Start of an accelerating motion: least-squares fit, to the frames `..end`, of a straight
+/// line (the slow drift before) joined at tau by a parabola (constant initial acceleration, as
+/// of a spring let go from rest): y = a + b t + q max(0, t - tau)^2. tau runs over the frames
+/// of a window reaching `4 * edge` frames (at least 20) before `end`; the best is refined
+/// between frames by a parabola through the residual sums of squares.
+fn accelerating_onset(t: &[f64], y: &[f64], end: usize, edge: usize) -> Option<f64> {
+    let end = end.min(y.len());
+    let start = end.saturating_sub((4 * edge).max(20));
+    let (tw, yw) = (&t[start..end], &y[start..end]);
+    if tw.len() < 8 {
+        return None;
+    }
+    let t0 = tw[0];
+    let sse_at = |tau: f64| -> Option<f64> {
+        let mut m = [[0.0; 3]; 3];
+        let mut v = [0.0; 3];
+        for (&ti, &yi) in tw.iter().zip(yw) {
+            let u = ti - t0;
+            let h = (ti - tau).max(0.0);
+            let basis = [1.0, u, h * h];
+            for a in 0..3 {
+                v[a] += basis[a] * yi;
+                for b in 0..3 {
+                    m[a][b] += basis[a] * basis[b];
+                }
+            }
+        }
+        let c = super::solve_linear(m, v)?;
+        Some(
+            tw.iter()
+                .zip(yw)
+                .map(|(&ti, &yi)| {
+                    let h = (ti - tau).max(0.0);
+                    let r = yi - c[0] - c[1] * (ti - t0) - c[2] * h * h;
+                    r * r
+                })
+                .sum(),
+        )
+    };
+    let candidates: Vec<(usize, f64)> = (2..tw.len() - 2)
+        .filter_map(|k| sse_at(tw[k]).map(|v| (k, v)))
+        .collect();
+    let &(k, best) = candidates.iter().min_by(|a, b| a.1.total_cmp(&b.1))?;
+    let around = |k: usize| candidates.iter().find(|c| c.0 == k).map(|c| c.1);
+    match (around(k.wrapping_sub(1)), around(k + 1)) {
+        (Some(a), Some(c)) => {
+            match super::parabola_vertex((tw[k - 1], a), (tw[k], best), (tw[k + 1], c)) {
+                Some((tv, _)) if tv >= tw[k - 1] && tv <= tw[k + 1] => Some(tv),
+                _ => Some(tw[k]),
+            }
+        }
+        _ => Some(tw[k]),
+    }
+}
 
 /// Time at which the rising edge of the rate crosses `level`, from a least-squares line through
 /// the rate samples between 20 % and 80 % of the peak on the edge that ends at the peak. Many
@@ -136,8 +194,21 @@ pub fn detect_release(
     while j > 0 && s * rate[j - 1] > level {
         j -= 1;
     }
-    let release_s = edge_crossing(&rate[..=i_max], &mid[..=i_max], s, peak, level)
-        .filter(|r| *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[i_max])
+    // Rising edge: back from the peak rate to where the rate first reaches 70 % of it.
+    let mut e = i_max;
+    while e > j && s * rate[e - 1] >= 0.7 * peak {
+        e -= 1;
+    }
+    let fitted = (e >= j + 3)
+        .then(|| accelerating_onset(t, y, e + w, e.saturating_sub(j)))
+        .flatten()
+        .filter(|r| *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[e]);
+    let release_s = fitted
+        .or_else(|| {
+            edge_crossing(&rate[..=i_max], &mid[..=i_max], s, peak, level).filter(|r| {
+                *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[i_max]
+            })
+        })
         .unwrap_or_else(|| {
             if j == 0 {
                 mid[0]
