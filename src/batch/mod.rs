@@ -229,8 +229,9 @@ fn process(
     Ok((record, false))
 }
 
-/// Rebuilds `summary.csv` in `out_dir` from the records in `out_dir/trials`, in name order,
-/// reading one record at a time. Unreadable record files are skipped and returned.
+/// Rebuilds `summary.csv` and `groups.csv` in `out_dir` from the records in `out_dir/trials`,
+/// in name order, reading one record at a time. Unreadable record files are skipped and
+/// returned.
 pub fn write_summary(out_dir: &Path) -> Result<Vec<PathBuf>> {
     let dir = trials_dir(out_dir);
     let mut paths: Vec<PathBuf> = std::fs::read_dir(&dir)
@@ -245,12 +246,13 @@ pub fn write_summary(out_dir: &Path) -> Result<Vec<PathBuf>> {
         })
         .collect();
     paths.sort();
+    let summary = out_dir.join("summary.csv");
+    let csv_err = |e: csv::Error| Error::malformed(&summary, e.to_string());
     let mut unreadable = Vec::new();
+    let mut groups = report::groups::GroupTable::default();
     let mut buf = Vec::new();
     {
         let mut w = csv::Writer::from_writer(&mut buf);
-        let summary = out_dir.join("summary.csv");
-        let csv_err = |e: csv::Error| Error::malformed(&summary, e.to_string());
         w.write_record(report::csv::SUMMARY_COLUMNS)
             .map_err(csv_err)?;
         for p in paths {
@@ -258,15 +260,23 @@ pub fn write_summary(out_dir: &Path) -> Result<Vec<PathBuf>> {
                 .ok()
                 .and_then(|t| report::json::parse_record(&t).ok())
             {
-                Some(r) => w
-                    .write_record(report::csv::summary_row(&r))
-                    .map_err(csv_err)?,
+                Some(r) => {
+                    w.write_record(report::csv::summary_row(&r))
+                        .map_err(csv_err)?;
+                    groups.add(&r);
+                }
                 None => unreadable.push(p),
             }
         }
         w.flush().map_err(|e| Error::io(&summary, e))?;
     }
-    atomic::write_atomic(&out_dir.join("summary.csv"), &buf)?;
+    atomic::write_atomic(&summary, &buf)?;
+    let groups_path = out_dir.join("groups.csv");
+    let mut gbuf = Vec::new();
+    groups
+        .write(&mut gbuf)
+        .map_err(|e| Error::malformed(&groups_path, e.to_string()))?;
+    atomic::write_atomic(&groups_path, &gbuf)?;
     Ok(unreadable)
 }
 

@@ -37,7 +37,7 @@ enum Command {
     Trial(TrialArgs),
     /// Analyse every trial of a folder or manifest into an output folder.
     Batch(BatchArgs),
-    /// Rebuild summary.csv of an output folder from its records.
+    /// Rebuild summary.csv and groups.csv of an output folder from its records.
     Summarize(SummarizeArgs),
     /// Write synthetic trials with known truth.
     Synth(SynthArgs),
@@ -109,10 +109,19 @@ struct BatchArgs {
     strict: bool,
 }
 
+#[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
+enum GroupBy {
+    /// The manifest's `group` column.
+    Group,
+}
+
 #[derive(Args, Debug)]
 struct SummarizeArgs {
     /// Output folder of a batch.
     dir: PathBuf,
+    /// What groups.csv groups trials by.
+    #[arg(long, value_enum, default_value_t = GroupBy::Group)]
+    by: GroupBy,
 }
 
 #[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
@@ -228,7 +237,10 @@ pub fn run() -> ExitCode {
     match cli.command {
         Command::Trial(args) => run_trial(args),
         Command::Batch(args) => run_batch(args),
-        Command::Summarize(args) => run_summarize(&args.dir),
+        Command::Summarize(args) => {
+            let GroupBy::Group = args.by;
+            run_summarize(&args.dir)
+        }
         Command::Synth(args) => run_synth(args),
     }
 }

@@ -2,5 +2,6 @@
 //! deterministic (no timestamps, fixed float formatting) so outputs can be compared byte for byte.
 
 pub mod csv;
+pub mod groups;
 pub mod json;
 pub mod text;

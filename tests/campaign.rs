@@ -1,0 +1,222 @@
+//! Overnight-campaign guarantees: a batch killed with SIGKILL at any point resumes to records
+//! byte-identical to an uninterrupted run, with no temporary files left; shards cover every
+//! trial exactly once; a changed rig setting recomputes every trial it affects; groups.csv
+//! agrees with statistics computed independently.
+
+mod common;
+
+use std::collections::BTreeMap;
+use std::path::Path;
+use std::time::Duration;
+
+use common::{bin, read_json};
+
+fn synth(dir: &Path, count: usize) {
+    bin()
+        .args(["synth", "--seed", "3", "--duration-s", "1.0", "--count"])
+        .arg(count.to_string())
+        .arg("--out")
+        .arg(dir)
+        .assert()
+        .success();
+}
+
+fn records(out: &Path) -> BTreeMap<String, Vec<u8>> {
+    std::fs::read_dir(out.join("trials"))
+        .map(|d| {
+            d.flatten()
+                .map(|e| {
+                    (
+                        e.file_name().to_string_lossy().into_owned(),
+                        std::fs::read(e.path()).unwrap(),
+                    )
+                })
+                .collect()
+        })
+        .unwrap_or_default()
+}
+
+#[test]
+fn a_batch_killed_at_any_point_resumes_to_identical_records() {
+    let data = tempfile::tempdir().unwrap();
+    synth(data.path(), 40);
+    let reference = tempfile::tempdir().unwrap();
+    bin()
+        .arg("batch")
+        .arg(data.path())
+        .arg("--out")
+        .arg(reference.path())
+        .arg("--quiet")
+        .assert()
+        .success();
+    let expected = records(reference.path());
+    assert_eq!(expected.len(), 40);
+    let mut interrupted = 0;
+
+    for delay_ms in [5u64, 30, 80, 160, 400] {
+        let out = tempfile::tempdir().unwrap();
+        let exe = assert_cmd::cargo::cargo_bin("latchtime");
+        let mut child = std::process::Command::new(&exe)
+            .arg("batch")
+            .arg(data.path())
+            .arg("--out")
+            .arg(out.path())
+            .args(["--quiet", "--jobs", "2"])
+            .spawn()
+            .unwrap();
+        std::thread::sleep(Duration::from_millis(delay_ms));
+        // Child::kill sends SIGKILL on Unix.
+        let _ = child.kill();
+        let _ = child.wait();
+        // Whatever the kill left must be complete records only (or temp files).
+        let left = records(out.path());
+        if left.keys().filter(|n| !n.starts_with('.')).count() < expected.len() {
+            interrupted += 1;
+        }
+        for (name, bytes) in left {
+            if !name.starts_with('.') {
+                assert_eq!(
+                    Some(&bytes),
+                    expected.get(&name),
+                    "partial record {name} after kill at {delay_ms} ms"
+                );
+            }
+        }
+        bin()
+            .arg("batch")
+            .arg(data.path())
+            .arg("--out")
+            .arg(out.path())
+            .arg("--quiet")
+            .assert()
+            .success();
+        let resumed = records(out.path());
+        assert_eq!(resumed, expected, "after kill at {delay_ms} ms");
+        let summary = std::fs::read(out.path().join("summary.csv")).unwrap();
+        assert_eq!(
+            summary,
+            std::fs::read(reference.path().join("summary.csv")).unwrap()
+        );
+    }
+    assert!(interrupted >= 1, "no kill landed before the batch finished");
+}
+
+#[test]
+fn shards_together_cover_every_trial_exactly_once() {
+    let data = tempfile::tempdir().unwrap();
+    synth(data.path(), 30);
+    for n in [1u32, 2, 3, 7] {
+        let out = tempfile::tempdir().unwrap();
+        let mut seen: BTreeMap<String, u32> = BTreeMap::new();
+        for k in 1..=n {
+            let before: Vec<String> = records(out.path()).into_keys().collect();
+            bin()
+                .arg("batch")
+                .arg(data.path())
+                .arg("--out")
+                .arg(out.path())
+                .args(["--quiet", "--shard", &format!("{k}/{n}")])
+                .assert()
+                .success();
+            for name in records(out.path()).into_keys() {
+                if !before.contains(&name) {
+                    *seen.entry(name).or_default() += 1;
+                }
+            }
+        }
+        assert_eq!(seen.len(), 30, "n = {n}");
+        assert!(seen.values().all(|c| *c == 1));
+    }
+    bin()
+        .args(["batch", "x", "--out", "y", "--shard", "0/3"])
+        .assert()
+        .code(2);
+    bin()
+        .args(["batch", "x", "--out", "y", "--shard", "4/3"])
+        .assert()
+        .code(2);
+}
+
+#[test]
+fn a_changed_rig_setting_recomputes_the_trials_it_affects() {
+    let data = tempfile::tempdir().unwrap();
+    synth(data.path(), 3);
+    let out = tempfile::tempdir().unwrap();
+    let rig = data.path().join("rig.json");
+    let run = || {
+        let o = bin()
+            .arg("batch")
+            .arg(data.path())
+            .arg("--out")
+            .arg(out.path())
+            .arg("--rig")
+            .arg(&rig)
+            .output()
+            .unwrap();
+        assert!(o.status.success());
+        String::from_utf8_lossy(&o.stderr).into_owned()
+    };
+    std::fs::write(&rig, r#"{"mic_distance_m": 0.3}"#).unwrap();
+    assert!(run().contains("(3 analysed, 0 current"));
+    assert!(run().contains("(0 analysed, 3 current"));
+    std::fs::write(&rig, r#"{"mic_distance_m": 0.3, "double_click_db": -10}"#).unwrap();
+    assert!(run().contains("(3 analysed, 0 current"));
+    // A command-line override is a setting too.
+    let o = bin()
+        .arg("batch")
+        .arg(data.path())
+        .arg("--out")
+        .arg(out.path())
+        .arg("--rig")
+        .arg(&rig)
+        .args(["--channel", "0"])
+        .output()
+        .unwrap();
+    assert!(String::from_utf8_lossy(&o.stderr).contains("(0 analysed, 3 current"));
+}
+
+#[test]
+fn groups_csv_matches_statistics_computed_from_summary_csv() {
+    let out = tempfile::tempdir().unwrap();
+    bin()
+        .current_dir(common::repo())
+        .args([
+            "batch",
+            "sample-audio/manifest.csv",
+            "--quiet",
+            "--rig",
+            "calibration/demo-rig.json",
+            "--out",
+        ])
+        .arg(out.path())
+        .assert()
+        .success();
+    let groups = std::fs::read_to_string(out.path().join("groups.csv")).unwrap();
+    let mut lines = groups.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let rows: Vec<Vec<&str>> = lines.map(|l| l.split(',').collect()).collect();
+    assert_eq!(rows.len(), 4, "three groups and the row over all trials");
+    let col = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    let thin = rows.iter().find(|r| r[0] == "leaf-0.8mm").unwrap();
+    // Recompute loading_ms statistics for the group from the records, independently.
+    let mut loading: Vec<f64> = (1..=5)
+        .filter_map(|i| {
+            read_json(&out.path().join(format!("trials/ls2-thin-0{i}.json")))["loading_ms"].as_f64()
+        })
+        .collect();
+    loading.sort_by(f64::total_cmp);
+    let n = loading.len() as f64;
+    let mean = loading.iter().sum::<f64>() / n;
+    let sd = (loading.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
+    let get = |name: &str| thin[col(name)].parse::<f64>().unwrap();
+    assert_eq!(get("loading_ms_n"), n);
+    assert!((get("loading_ms_mean") - mean).abs() < 1e-5);
+    assert!((get("loading_ms_sd") - sd).abs() < 1e-5);
+    assert_eq!(thin[col("trials")], "5");
+    assert_eq!(thin[col("n_double_click")], "1");
+    assert_eq!(thin[col("n_clipped")], "1");
+    assert!(get("loading_ms_ci95_low") <= mean && mean <= get("loading_ms_ci95_high"));
+    let all = rows.last().unwrap();
+    assert_eq!(all[0], "(all)");
+    assert_eq!(all[col("trials")], "14");
+}
