@@ -63,7 +63,8 @@ pub struct RigProfile {
     pub efficiency_model: EfficiencyModel,
     /// Audio high-pass corner before click detection, Hz (zero-phase 4th-order Butterworth).
     pub highpass_hz: f64,
-    /// Click trigger level, in robust noise standard deviations of the filtered audio.
+    /// Click trigger level: standard score of the 0.25 ms short-term energy of the filtered
+    /// audio against the noise floor.
     pub click_threshold_sigma: f64,
     /// A transient whose spectral centroid is below this is a thump, not a click, Hz.
     pub min_click_centroid_hz: f64,
@@ -97,7 +98,7 @@ impl Default for RigProfile {
             low_snr_db: 20.0,
             efficiency_model: EfficiencyModel::Energy,
             highpass_hz: 1000.0,
-            click_threshold_sigma: 8.0,
+            click_threshold_sigma: 5.0,
             min_click_centroid_hz: 2000.0,
             click_merge_ms: 1.0,
             release_rate_fraction: 0.1,
