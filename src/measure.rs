@@ -111,13 +111,18 @@ pub struct TrialRecord {
     pub loading_onset_s: Option<f64>,
     pub loading_onset_uncertainty_ms: Option<f64>,
     pub latch_release_s: Option<f64>,
+    pub latch_release_sd_ms: Option<f64>,
     pub latch_release_video_s: Option<f64>,
     pub motion_peak_s: Option<f64>,
+    pub motion_peak_sd_ms: Option<f64>,
     pub loading_ms: Option<f64>,
+    pub loading_ms_sd: Option<f64>,
     pub release_ms: Option<f64>,
+    pub release_ms_sd: Option<f64>,
     pub amplification_lossless: Option<f64>,
     pub efficiency: Option<f64>,
     pub amplification: Option<f64>,
+    pub amplification_sd: Option<f64>,
     pub oscillation: Option<Oscillation>,
     pub click: Option<ClickMeasures>,
     pub sync: Option<SyncCheck>,
@@ -144,13 +149,18 @@ impl TrialRecord {
             loading_onset_s: None,
             loading_onset_uncertainty_ms: None,
             latch_release_s: None,
+            latch_release_sd_ms: None,
             latch_release_video_s: None,
             motion_peak_s: None,
+            motion_peak_sd_ms: None,
             loading_ms: None,
+            loading_ms_sd: None,
             release_ms: None,
+            release_ms_sd: None,
             amplification_lossless: None,
             efficiency: None,
             amplification: None,
+            amplification_sd: None,
             oscillation: None,
             click: None,
             sync: None,
@@ -244,7 +254,9 @@ pub fn measure(
             Some(m) => {
                 record.latch_release_video_s = Some(m.release_s);
                 record.latch_release_s = Some(m.release_s);
+                record.latch_release_sd_ms = Some(m.release_sd_s * 1e3);
                 record.motion_peak_s = Some(m.motion_peak_s);
+                record.motion_peak_sd_ms = Some(m.motion_peak_sd_s * 1e3);
                 if let Some(click_s) = record.click_onset_s {
                     let tolerance_s =
                         (rig.sync_tolerance_frames * period).max(rig.sync_tolerance_min_ms * 1e-3);
@@ -265,6 +277,9 @@ pub fn measure(
                         // The clocks agree: the click times the release far more finely than
                         // the frames do.
                         record.latch_release_s = Some(click_s - delay_s - rig.video_offset_s);
+                        // The AIC pick is good to a sample or two.
+                        let sample_s = audio.map_or(0.0, |(_, fs)| 1.0 / fs);
+                        record.latch_release_sd_ms = Some(1.5 * sample_s * 1e3);
                     }
                 }
             }
@@ -279,18 +294,52 @@ pub fn measure(
             }
         }
     }
+    // Standard uncertainties, ms, of the three event times (loading: the 95 % half-width / 1.96).
+    let sd_load = record.loading_onset_uncertainty_ms.map(|u| u / 1.96);
+    let sd_release = record.latch_release_sd_ms;
+    let sd_peak = record.motion_peak_sd_ms;
+    if let (Some(_), Some(a), Some(b)) = (record.release_ms, sd_release, sd_peak) {
+        record.release_ms_sd = Some(a.hypot(b));
+    }
+    if let (Some(_), Some(a), Some(b)) = (record.loading_ms, sd_load, sd_release) {
+        record.loading_ms_sd = Some(a.hypot(b));
+    }
     if let (Some(loading), Some(release)) = (record.loading_ms, record.release_ms) {
         if release > 0.0 {
             let lossless = loading / release;
             record.amplification_lossless = Some(lossless);
-            record.efficiency = match rig.efficiency_model {
-                EfficiencyModel::Energy => record.oscillation.as_ref().map(|o| o.energy_retention),
-                EfficiencyModel::Amplitude => {
-                    record.oscillation.as_ref().map(|o| o.amplitude_ratio)
-                }
-                EfficiencyModel::None => Some(1.0),
+            let osc = record.oscillation.as_ref();
+            let (efficiency, efficiency_sd) = match rig.efficiency_model {
+                EfficiencyModel::Energy => (
+                    osc.map(|o| o.energy_retention),
+                    osc.map(|o| 2.0 * o.amplitude_ratio * o.amplitude_ratio_sd.unwrap_or(0.0)),
+                ),
+                EfficiencyModel::Amplitude => (
+                    osc.map(|o| o.amplitude_ratio),
+                    osc.map(|o| o.amplitude_ratio_sd.unwrap_or(0.0)),
+                ),
+                EfficiencyModel::None => (Some(1.0), Some(0.0)),
             };
-            record.amplification = record.efficiency.map(|e| e * lossless);
+            record.efficiency = efficiency;
+            record.amplification = efficiency.map(|e| e * lossless);
+            // A = (t_release - t_load) / (t_peak - t_release) * E, first-order propagation:
+            // dA/dt_load = -A/L, dA/dt_peak = -A/R, dA/dt_release = A (1/L + 1/R), dA/dE = A/E.
+            if let (Some(a), Some(e), Some(sd_e), Some(l), Some(r), Some(p)) = (
+                record.amplification,
+                efficiency,
+                efficiency_sd,
+                sd_load,
+                sd_release,
+                sd_peak,
+            ) {
+                let terms = [
+                    a / loading * l,
+                    a / release * p,
+                    a * (1.0 / loading + 1.0 / release) * r,
+                    if e > 0.0 { a / e * sd_e } else { 0.0 },
+                ];
+                record.amplification_sd = Some(terms.iter().map(|t| t * t).sum::<f64>().sqrt());
+            }
         }
     }
     flags.sort();
@@ -332,6 +381,8 @@ mod tests {
                 peak_rate_per_s: 1.0,
                 jump: 1.0,
                 overshoot: true,
+                release_sd_s: 1e-4,
+                motion_peak_sd_s: 1e-4,
             }),
             loading: Some(crate::detect::loading::LoadingOnset {
                 onset_s: 0.016,
@@ -349,6 +400,10 @@ mod tests {
         rig.efficiency_model = EfficiencyModel::Amplitude;
         measure(&mut r, None, Some(&video), &rig);
         assert!((r.amplification.unwrap() - 13.2).abs() < 0.05);
+        // Propagation: release_ms_sd = hypot(0.1, 0.1) ms; loading_ms_sd = hypot(1/1.96, 0.1).
+        assert!((r.release_ms_sd.unwrap() - 0.1f64.hypot(0.1)).abs() < 1e-9);
+        assert!((r.loading_ms_sd.unwrap() - (1.0f64 / 1.96).hypot(0.1)).abs() < 1e-9);
+        assert!(r.amplification_sd.unwrap() > 0.0);
         assert_eq!(r.status, Status::Ok);
     }
 }

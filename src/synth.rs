@@ -103,6 +103,17 @@ pub struct SynthConfig {
     pub hum_hz: f64,
     /// Frames left out of the frame CSV (dropped by the camera), away from the fast phase.
     pub dropped_frames: usize,
+    /// Click peak over noise RMS, dB, drawn uniformly from this range; `None`: noise at
+    /// -62 dBFS RMS and a click peak of -14 to -6 dBFS (about 50 dB).
+    pub click_snr_db: Option<(f64, f64)>,
+    /// Per-frame noise of the motion measure, in its units (the jump is 40-70 units).
+    pub video_noise: f64,
+    /// Real-world variety: a latch that creeps before it snaps (half the trials), overdamped
+    /// releases without overshoot (one in six), loading drifts that start gently (exponent
+    /// 1-1.4 instead of a straight line).
+    pub variety: bool,
+    /// Timestamps printed to this many significant digits (rounded, as exporters do).
+    pub timestamp_digits: Option<u32>,
 }
 
 impl Default for SynthConfig {
@@ -117,6 +128,10 @@ impl Default for SynthConfig {
             frames: true,
             hum_hz: 50.0,
             dropped_frames: 0,
+            click_snr_db: None,
+            video_noise: 0.5,
+            variety: false,
+            timestamp_digits: None,
         }
     }
 }
@@ -140,6 +155,12 @@ pub struct Truth {
     pub oscillation: Option<Oscillation>,
     pub audio_sample_rate_hz: Option<f64>,
     pub video_fps: Option<f64>,
+    /// Click peak over noise RMS as synthesised, dB.
+    pub click_snr_db: Option<f64>,
+    /// How far the click was moved off the clock relation (out-of-sync kind), ms.
+    pub sync_slip_ms: Option<f64>,
+    /// The release overshoots into an oscillation (false: overdamped).
+    pub overshoot: Option<bool>,
 }
 
 /// A generated trial, ready to write.
@@ -181,22 +202,45 @@ pub fn generate(
     let jump = sign * rng.gen_range(40.0..70.0);
     let drift = -jump * rng.gen_range(0.15..0.3);
     let osc_amp = jump * rng.gen_range(0.25..0.4);
-    let video_noise = Normal::new(0.0, 0.5).expect("constant standard deviation is valid");
+    let video_noise =
+        Normal::new(0.0, config.video_noise.max(0.0)).expect("noise level is not negative");
     let s = -ratio.ln() * freq_hz;
     let wd = 2.0 * PI * freq_hz;
     let fires = !matches!(kind, TrialKind::Failed | TrialKind::Empty);
     let loads = kind != TrialKind::Empty;
     let relax_tau_s = rng.gen_range(0.02..0.05);
-    let y_release = baseline + drift;
+    let (creep_s, creep, overshoot, bend) = if config.variety {
+        (
+            if rng.gen_bool(0.5) {
+                rng.gen_range(1e-3..3e-3)
+            } else {
+                0.0
+            },
+            jump * rng.gen_range(0.02..0.04),
+            !rng.gen_bool(1.0 / 6.0),
+            rng.gen_range(1.0..1.4),
+        )
+    } else {
+        (0.0, 0.0, true, 1.0)
+    };
+    let y_release = baseline + drift + if creep_s > 0.0 { creep } else { 0.0 };
     let value_at = |t: f64| -> f64 {
         if !loads || t < loading_onset_s {
             baseline
         } else if t < release_s {
-            baseline + drift * (t - loading_onset_s) / (release_s - loading_onset_s)
+            let u: f64 = (t - loading_onset_s) / (release_s - loading_onset_s);
+            let creeping = if creep_s > 0.0 && t > release_s - creep_s {
+                creep * (t - (release_s - creep_s)) / creep_s
+            } else {
+                0.0
+            };
+            baseline + drift * u.powf(bend) + if fires { creeping } else { 0.0 }
         } else if !fires {
             baseline + drift * (-(t - release_s) / relax_tau_s).exp()
         } else if t < peak_s {
             y_release + 0.5 * jump * (1.0 - (PI * (t - release_s) / (peak_s - release_s)).cos())
+        } else if !overshoot {
+            y_release + jump
         } else {
             let tau = t - peak_s;
             y_release + jump - osc_amp
@@ -218,8 +262,22 @@ pub fn generate(
     // Audio.
     let fs = f64::from(config.sample_rate_hz);
     let n_samples = (duration_s * fs).round() as usize;
-    let noise =
-        Normal::new(0.0, 10f64.powf(-62.0 / 20.0)).expect("constant standard deviation is valid");
+    let click_amp = if kind == TrialKind::Clipped {
+        2.5
+    } else {
+        rng.gen_range(0.2..0.5)
+    };
+    let (noise_rms, click_snr_db) = match config.click_snr_db {
+        Some((lo, hi)) if kind != TrialKind::Clipped => {
+            let snr = if hi > lo { rng.gen_range(lo..hi) } else { lo };
+            (click_amp / 10f64.powf(snr / 20.0), snr)
+        }
+        _ => {
+            let rms = 10f64.powf(-62.0 / 20.0);
+            (rms, 20.0 * (click_amp.min(1.0) / rms).log10())
+        }
+    };
+    let noise = Normal::new(0.0, noise_rms).expect("noise level is positive");
     let hum_amp = 10f64.powf(-32.0 / 20.0);
     let dc = rng.gen_range(-0.01..0.01);
     let hum_phase = rng.gen_range(0.0..2.0 * PI);
@@ -237,18 +295,15 @@ pub fn generate(
         })
         .collect();
     let slip_s = if kind == TrialKind::OutOfSync {
-        (8e-3f64).max(8.0 / fps)
+        let sign = if rng.gen_bool(0.5) { 1.0 } else { -1.0 };
+        sign * rng.gen_range(5e-3..20e-3f64).max(6.0 / fps)
     } else {
         0.0
     };
     let click_s = rig.audio_time_s(release_s) + slip_s;
     let mut clicks = Vec::new();
     if fires {
-        let amp = if kind == TrialKind::Clipped {
-            2.5
-        } else {
-            rng.gen_range(0.2..0.5)
-        };
+        let amp = click_amp;
         add_click(&mut audio, fs, click_s, amp, &mut rng);
         clicks.push(click_s);
         if kind == TrialKind::DoubleClick {
@@ -304,7 +359,8 @@ pub fn generate(
         out
     };
 
-    let oscillation = fires.then(|| crate::detect::oscillation::from_ratio(freq_hz, ratio, 0));
+    let oscillation =
+        (fires && overshoot).then(|| crate::detect::oscillation::from_ratio(freq_hz, ratio, 0));
     let has_audio = config.audio;
     let has_frames = config.frames;
     let efficiency = oscillation.as_ref().map(|o| o.energy_retention);
@@ -316,6 +372,9 @@ pub fn generate(
                 .expected_flags()
                 .into_iter()
                 .chain((has_frames && config.dropped_frames > 0).then_some(Flag::FrameGaps))
+                .chain(
+                    (has_audio && fires && click_snr_db < rig.low_snr_db).then_some(Flag::LowSnr),
+                )
                 .filter(|f| match f {
                     Flag::NoClick | Flag::DoubleClick | Flag::Clipped => has_audio,
                     Flag::NoLoading | Flag::NoRelease => has_frames,
@@ -341,6 +400,9 @@ pub fn generate(
         oscillation: oscillation.filter(|_| has_frames),
         audio_sample_rate_hz: has_audio.then_some(fs),
         video_fps: has_frames.then_some(fps),
+        click_snr_db: (has_audio && fires).then_some(click_snr_db),
+        sync_slip_ms: (kind == TrialKind::OutOfSync).then_some(slip_s * 1e3),
+        overshoot: (has_frames && fires).then_some(overshoot),
     };
     SynthTrial {
         name: name.to_string(),
@@ -390,40 +452,73 @@ fn add_click(audio: &mut [f64], fs: f64, at_s: f64, amp: f64, rng: &mut ChaCha8R
     }
 }
 
-/// Writes `NAME.wav`, `NAME.frames.csv` and `NAME.truth.json` into `dir`.
-pub fn write_trial(dir: &Path, trial: &SynthTrial) -> Result<()> {
-    if let Some(audio) = &trial.audio {
-        let path = dir.join(format!("{}.wav", trial.name));
-        let (bits, format) = match trial.encoding {
-            SampleEncoding::Int16 => (16, hound::SampleFormat::Int),
-            SampleEncoding::Int24 => (24, hound::SampleFormat::Int),
-            SampleEncoding::Float32 => (32, hound::SampleFormat::Float),
-        };
-        let spec = hound::WavSpec {
-            channels: trial.channels,
-            sample_rate: trial.sample_rate_hz,
-            bits_per_sample: bits,
-            sample_format: format,
-        };
-        let wav_err = |e: hound::Error| Error::malformed(&path, format!("cannot write WAV: {e}"));
-        let mut w = hound::WavWriter::create(&path, spec).map_err(wav_err)?;
+/// The trial's audio as WAV file bytes.
+pub fn wav_bytes(trial: &SynthTrial) -> Option<Vec<u8>> {
+    let audio = trial.audio.as_ref()?;
+    let (bits, format) = match trial.encoding {
+        SampleEncoding::Int16 => (16, hound::SampleFormat::Int),
+        SampleEncoding::Int24 => (24, hound::SampleFormat::Int),
+        SampleEncoding::Float32 => (32, hound::SampleFormat::Float),
+    };
+    let spec = hound::WavSpec {
+        channels: trial.channels,
+        sample_rate: trial.sample_rate_hz,
+        bits_per_sample: bits,
+        sample_format: format,
+    };
+    let mut cursor =
+        std::io::Cursor::new(Vec::with_capacity(audio.len() * usize::from(bits / 8) + 64));
+    {
+        // Writing to memory cannot fail for I/O reasons; hound only errors on bad specs.
+        let mut w = hound::WavWriter::new(&mut cursor, spec).ok()?;
         let scale = 2f64.powi(i32::from(bits) - 1);
         for &v in audio {
             match format {
                 hound::SampleFormat::Int => w.write_sample((v * scale).round() as i32),
                 hound::SampleFormat::Float => w.write_sample(v as f32),
             }
-            .map_err(wav_err)?;
+            .ok()?;
         }
-        w.finalize().map_err(wav_err)?;
+        w.finalize().ok()?;
     }
-    if let Some(frames) = &trial.frames {
-        let path = dir.join(format!("{}.frames.csv", trial.name));
-        let mut text = String::with_capacity(frames.len() * 28);
-        text.push_str("frame,time_s,brightness\n");
-        for (k, t, y) in frames {
-            text.push_str(&format!("{k},{t:.7},{y:.3}\n"));
+    Some(cursor.into_inner())
+}
+
+/// The trial's frames as CSV text (`frame,time_s,brightness`), timestamps rounded to
+/// `timestamp_digits` significant digits when given.
+pub fn frames_csv(trial: &SynthTrial, timestamp_digits: Option<u32>) -> Option<String> {
+    let frames = trial.frames.as_ref()?;
+    let mut text = String::with_capacity(frames.len() * 28);
+    text.push_str("frame,time_s,brightness\n");
+    for (k, t, y) in frames {
+        match timestamp_digits {
+            Some(d) if *t > 0.0 => {
+                let decimals = (d as i32 - 1 - t.log10().floor() as i32).max(0) as usize;
+                text.push_str(&format!("{k},{t:.decimals$},{y:.3}\n"));
+            }
+            _ => text.push_str(&format!("{k},{t:.7},{y:.3}\n")),
         }
+    }
+    Some(text)
+}
+
+/// Writes `NAME.wav`, `NAME.frames.csv` and `NAME.truth.json` into `dir`.
+pub fn write_trial(dir: &Path, trial: &SynthTrial) -> Result<()> {
+    write_trial_with(dir, trial, None)
+}
+
+/// As [`write_trial`], with timestamps rounded to `timestamp_digits` significant digits.
+pub fn write_trial_with(
+    dir: &Path,
+    trial: &SynthTrial,
+    timestamp_digits: Option<u32>,
+) -> Result<()> {
+    if let Some(bytes) = wav_bytes(trial) {
+        let path = dir.join(format!("{}.wav", trial.name));
+        std::fs::write(&path, bytes).map_err(|e| Error::io(&path, e))?;
+    }
+    if let Some(text) = frames_csv(trial, timestamp_digits) {
+        let path = dir.join(format!("{}.frames.csv", trial.name));
         std::fs::write(&path, text).map_err(|e| Error::io(&path, e))?;
     }
     let path = dir.join(format!("{}.truth.json", trial.name));

@@ -87,27 +87,8 @@ pub fn detect_loading(t: &[f64], y: &[f64], end: usize, period_s: f64) -> Option
     }
     // The interval's ends are interpolated between frames, where the profile crosses the limit.
     let limit = sse_min.max(1e-300) * (3.84 / nf).exp();
-    let profile = |k: usize| sse[k].map(|v| v.0);
-    let edge = |step: isize| -> f64 {
-        let mut k = k_best;
-        loop {
-            let next = k as isize + step;
-            if next < 0 || next as usize >= m {
-                return tt[k];
-            }
-            let next = next as usize;
-            match profile(next) {
-                Some(v) if v <= limit => k = next,
-                Some(v) => {
-                    let here = profile(k).unwrap_or(sse_min);
-                    let f = ((limit - here) / (v - here)).clamp(0.0, 1.0);
-                    return tt[k] + f * (tt[next] - tt[k]);
-                }
-                None => return tt[k],
-            }
-        }
-    };
-    let half_width_s = 0.5 * (edge(1) - edge(-1));
+    let profile: Vec<Option<f64>> = sse.iter().map(|v| v.map(|v| v.0)).collect();
+    let half_width_s = super::profile_half_width(&tt, &profile, k_best, limit);
     Some(LoadingOnset {
         onset_s: onset + t0,
         uncertainty_ms: half_width_s.max(0.5 * period_s) * 1e3,

@@ -110,6 +110,53 @@ pub fn solve_linear<const N: usize>(mut m: [[f64; N]; N], mut v: [f64; N]) -> Op
     x.iter().all(|v| v.is_finite()).then_some(x)
 }
 
+/// Half-width of a likelihood interval from a profile of residual sums of squares over the grid
+/// `times`: walking out from `best`, where the profile crosses `limit`, interpolated between
+/// grid points (a grid end or a missing value stops the walk).
+pub fn profile_half_width(times: &[f64], sse: &[Option<f64>], best: usize, limit: f64) -> f64 {
+    let edge = |step: isize| -> f64 {
+        let mut k = best;
+        loop {
+            let next = k as isize + step;
+            if next < 0 || next as usize >= times.len() {
+                return times[k];
+            }
+            let next = next as usize;
+            match sse[next] {
+                Some(v) if v <= limit => k = next,
+                Some(v) => {
+                    let here = sse[k].unwrap_or(limit);
+                    let f = ((limit - here) / (v - here)).clamp(0.0, 1.0);
+                    return times[k] + f * (times[next] - times[k]);
+                }
+                None => return times[k],
+            }
+        }
+    };
+    0.5 * (edge(1) - edge(-1))
+}
+
+/// Standard deviation of the parabola-vertex time around sample `k` when each sample carries
+/// independent noise of standard deviation `sigma` (first-order propagation).
+pub fn vertex_sd(t: &[f64], y: &[f64], k: usize, sigma: f64) -> f64 {
+    if k == 0 || k + 1 >= y.len() {
+        return 0.0;
+    }
+    let base = refine_extremum(t, y, k).0;
+    let eps = sigma.max(1e-9) * 1e-3;
+    let mut var = 0.0;
+    for j in k - 1..=k + 1 {
+        let mut yy = [y[k - 1], y[k], y[k + 1]];
+        yy[j + 1 - k] += eps;
+        let moved = match parabola_vertex((t[k - 1], yy[0]), (t[k], yy[1]), (t[k + 1], yy[2])) {
+            Some((tv, _)) => tv,
+            None => base,
+        };
+        var += ((moved - base) / eps * sigma).powi(2);
+    }
+    var.sqrt()
+}
+
 /// Least-squares slope and intercept of y on x.
 pub fn line_fit(x: &[f64], y: &[f64]) -> Option<(f64, f64)> {
     let n = x.len() as f64;
@@ -266,7 +313,7 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
         )
     });
     let oscillation = fit.as_ref().map(|f| f.0.clone());
-    if let (Some(m), Some((_, Some(first_extremum_s)))) = (motion.as_mut(), &fit) {
+    if let (Some(m), Some((_, Some((first_extremum_s, first_sd_s))))) = (motion.as_mut(), &fit) {
         // The fitted first extremum uses the frames of the whole first cycles; the three-frame
         // parabola is pulled towards the slower side of an asymmetric peak and, at high frame
         // rates, by noise. Take the fit when it agrees with the parabola to within 1.5 frames
@@ -276,6 +323,7 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
         if (first_extremum_s - m.motion_peak_s).abs() <= agree_s && *first_extremum_s > m.release_s
         {
             m.motion_peak_s = *first_extremum_s;
+            m.motion_peak_sd_s = first_sd_s.max(0.01 * clock.period_s);
         }
     }
     VideoEvents {

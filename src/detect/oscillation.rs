@@ -30,6 +30,8 @@ pub struct Oscillation {
     pub damping_ratio: f64,
     /// Number of extrema used, the motion peak included.
     pub extrema_used: usize,
+    /// Standard uncertainty of `amplitude_ratio` from the fit's covariance (null without a fit).
+    pub amplitude_ratio_sd: Option<f64>,
 }
 
 /// Most extrema used: the first few cycles carry the decay; later ones drown in noise.
@@ -47,6 +49,7 @@ pub fn from_ratio(frequency_hz: f64, amplitude_ratio: f64, extrema_used: usize) 
             / (4.0 * std::f64::consts::PI * std::f64::consts::PI + log_decrement * log_decrement)
                 .sqrt(),
         extrema_used,
+        amplitude_ratio_sd: None,
     }
 }
 
@@ -63,7 +66,7 @@ pub fn detect_oscillation(
     direction: f64,
     noise_sigma: f64,
     period_s: f64,
-) -> Option<(Oscillation, Option<f64>)> {
+) -> Option<(Oscillation, Option<(f64, f64)>)> {
     let delta = (8.0 * noise_sigma).max(f64::MIN_POSITIVE);
     let mut extrema = vec![peak];
     // Looking for a minimum (in the sign-adjusted measure) first.
@@ -145,40 +148,34 @@ pub fn detect_oscillation(
             )
         })
         .flatten();
-    let (frequency_hz, amplitude_ratio, first_extremum_s) = match fitted {
-        Some(p) => {
-            let [_, a, b, decay, wd] = p;
-            let ratio = (-decay * 2.0 * std::f64::consts::PI / wd).exp();
-            // First extremum of the model: d/dt = 0 where tan(wd t + phi) = -s / wd.
-            let phi = (-b).atan2(a);
-            let mut t_ext = ((-decay / wd).atan() - phi) / wd;
-            let half = std::f64::consts::PI / wd;
-            while t_ext < -0.5 * half {
-                t_ext += half;
-            }
-            while t_ext > 0.5 * half {
-                t_ext -= half;
-            }
-            (
-                wd / (2.0 * std::f64::consts::PI),
-                ratio,
-                Some(peak.0 + t_ext),
-            )
-        }
-        None => (f0, ratio0, None),
+    let ratio_of = |p: &[f64; 5]| (-p[3] * 2.0 * std::f64::consts::PI / p[4]).exp();
+    let (frequency_hz, amplitude_ratio, ratio_sd, first_extremum_s) = match fitted {
+        Some((p, cov)) => (
+            p[4] / (2.0 * std::f64::consts::PI),
+            ratio_of(&p),
+            Some(propagate(&p, &cov, ratio_of)),
+            Some((
+                peak.0 + first_extremum(&p),
+                propagate(&p, &cov, first_extremum),
+            )),
+        ),
+        None => (f0, ratio0, None, None),
     };
     if !(amplitude_ratio > 0.0 && amplitude_ratio < 1.0) {
         return None;
     }
-    Some((
-        from_ratio(frequency_hz, amplitude_ratio, times.len()),
-        first_extremum_s,
-    ))
+    let mut oscillation = from_ratio(frequency_hz, amplitude_ratio, times.len());
+    oscillation.amplitude_ratio_sd = ratio_sd;
+    Some((oscillation, first_extremum_s))
 }
 
+/// Parameters [c, a, b, s, w] of a damped-oscillation fit and their covariance matrix.
+pub type DampedFit = ([f64; 5], [[f64; 5]; 5]);
+
 /// Levenberg-Marquardt fit of y = c + e^{-s u}(a cos w u + b sin w u), u = t - t0, from the
-/// start [c, a, b, s, w]. `None` when it does not converge to a decaying oscillation.
-pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<[f64; 5]> {
+/// start [c, a, b, s, w]. The covariance is s^2 (J'J)^-1 at the solution, s^2 the residual
+/// variance. `None` when it does not converge to a decaying oscillation.
+pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<DampedFit> {
     let residual_ss = |p: &[f64; 5]| -> f64 {
         t.iter()
             .zip(y)
@@ -243,7 +240,75 @@ pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<[f64
             break;
         }
     }
-    (p[3] > 0.0 && p[4] > 0.0 && p.iter().all(|v| v.is_finite())).then_some(p)
+    if !(p[3] > 0.0 && p[4] > 0.0 && p.iter().all(|v| v.is_finite())) || t.len() <= 5 {
+        return None;
+    }
+    let mut jtj = [[0.0f64; 5]; 5];
+    for &t in t {
+        let u = t - t0;
+        let e = (-p[3] * u).exp();
+        let (sn, cs) = (p[4] * u).sin_cos();
+        let osc = p[1] * cs + p[2] * sn;
+        let j = [
+            1.0,
+            e * cs,
+            e * sn,
+            -u * e * osc,
+            u * e * (-p[1] * sn + p[2] * cs),
+        ];
+        for a in 0..5 {
+            for b in 0..5 {
+                jtj[a][b] += j[a] * j[b];
+            }
+        }
+    }
+    let variance = cost / (t.len() - 5) as f64;
+    let mut cov = [[0.0; 5]; 5];
+    for k in 0..5 {
+        let mut unit = [0.0; 5];
+        unit[k] = 1.0;
+        let column = super::solve_linear(jtj, unit)?;
+        for (row, v) in column.iter().enumerate() {
+            cov[row][k] = v * variance;
+        }
+    }
+    Some((p, cov))
+}
+
+/// First extremum of the fitted model after (or nearest) u = 0: d/du = 0 where
+/// tan(w u + phi) = -s / w, phi = atan2(-b, a).
+fn first_extremum(p: &[f64; 5]) -> f64 {
+    let [_, a, b, decay, wd] = *p;
+    let phi = (-b).atan2(a);
+    let mut t_ext = ((-decay / wd).atan() - phi) / wd;
+    let half = std::f64::consts::PI / wd;
+    while t_ext < -0.5 * half {
+        t_ext += half;
+    }
+    while t_ext > 0.5 * half {
+        t_ext -= half;
+    }
+    t_ext
+}
+
+/// Standard deviation of `f(p)` by first-order propagation of `cov` (numerical gradient).
+fn propagate(p: &[f64; 5], cov: &[[f64; 5]; 5], f: impl Fn(&[f64; 5]) -> f64) -> f64 {
+    let base = f(p);
+    let grad: Vec<f64> = (0..5)
+        .map(|i| {
+            let h = (p[i].abs() * 1e-6).max(1e-9);
+            let mut q = *p;
+            q[i] += h;
+            (f(&q) - base) / h
+        })
+        .collect();
+    let mut var = 0.0;
+    for a in 0..5 {
+        for b in 0..5 {
+            var += grad[a] * cov[a][b] * grad[b];
+        }
+    }
+    var.max(0.0).sqrt()
 }
 
 #[cfg(test)]
@@ -269,7 +334,7 @@ mod tests {
         let ratio = (-0.429f64).exp();
         let (t, y) = ring(20_000.0, 100.0, ratio);
         let (o, first) = detect_oscillation(&t, &y, 0, (t[0], y[0]), 1.0, 1e-4, 5e-5).unwrap();
-        assert!(first.unwrap().abs() < 1e-6, "{first:?}");
+        assert!(first.unwrap().0.abs() < 1e-6, "{first:?}");
         assert!(
             (o.log_decrement - 0.429).abs() < 0.00429,
             "{}",

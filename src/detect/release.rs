@@ -67,6 +67,10 @@ pub struct MotionEvents {
     pub jump: f64,
     /// True when the motion overshoots and turns back (an extremum was found).
     pub overshoot: bool,
+    /// Standard uncertainty of `release_s`, seconds.
+    pub release_sd_s: f64,
+    /// Standard uncertainty of `motion_peak_s`, seconds.
+    pub motion_peak_sd_s: f64,
 }
 
 /// Noise standard deviations the largest change over the rate window must reach.
@@ -76,8 +80,9 @@ const MIN_WINDOW_SIGMA: f64 = 8.0;
 /// line (the slow drift before) joined at tau by a parabola (constant initial acceleration, as
 /// of a spring let go from rest): y = a + b t + q max(0, t - tau)^2. tau runs over the frames
 /// of a window reaching `4 * edge` frames (at least 20) before `end`; the best is refined
-/// between frames by a parabola through the residual sums of squares.
-fn accelerating_onset(t: &[f64], y: &[f64], end: usize, edge: usize) -> Option<f64> {
+/// between frames by a parabola through the residual sums of squares. Returns tau and its
+/// standard uncertainty (the 95 % likelihood interval's half-width over 1.96).
+fn accelerating_onset(t: &[f64], y: &[f64], end: usize, edge: usize) -> Option<(f64, f64)> {
     let end = end.min(y.len());
     let start = end.saturating_sub((4 * edge).max(20));
     let (tw, yw) = (&t[start..end], &y[start..end]);
@@ -116,15 +121,19 @@ fn accelerating_onset(t: &[f64], y: &[f64], end: usize, edge: usize) -> Option<f
         .collect();
     let &(k, best) = candidates.iter().min_by(|a, b| a.1.total_cmp(&b.1))?;
     let around = |k: usize| candidates.iter().find(|c| c.0 == k).map(|c| c.1);
-    match (around(k.wrapping_sub(1)), around(k + 1)) {
+    let tau = match (around(k.wrapping_sub(1)), around(k + 1)) {
         (Some(a), Some(c)) => {
             match super::parabola_vertex((tw[k - 1], a), (tw[k], best), (tw[k + 1], c)) {
-                Some((tv, _)) if tv >= tw[k - 1] && tv <= tw[k + 1] => Some(tv),
-                _ => Some(tw[k]),
+                Some((tv, _)) if tv >= tw[k - 1] && tv <= tw[k + 1] => tv,
+                _ => tw[k],
             }
         }
-        _ => Some(tw[k]),
-    }
+        _ => tw[k],
+    };
+    let profile: Vec<Option<f64>> = (0..tw.len()).map(around).collect();
+    let limit = best.max(1e-300) * (3.84 / tw.len() as f64).exp();
+    let half_width = super::profile_half_width(tw, &profile, k, limit);
+    Some((tau, half_width / 1.96))
 }
 
 /// Time at which the rising edge of the rate crosses `level`, from a least-squares line through
@@ -202,20 +211,31 @@ pub fn detect_release(
     let fitted = (e >= j + 3)
         .then(|| accelerating_onset(t, y, e + w, e.saturating_sub(j)))
         .flatten()
-        .filter(|r| *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[e]);
-    let release_s = fitted
+        .filter(|(r, _)| {
+            *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[e]
+        });
+    let quantisation_sd = period_s / 12f64.sqrt();
+    let (release_s, release_sd_s) = fitted
+        .map(|(r, sd)| (r, sd.max(0.05 * period_s)))
         .or_else(|| {
-            edge_crossing(&rate[..=i_max], &mid[..=i_max], s, peak, level).filter(|r| {
-                *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[i_max]
-            })
+            edge_crossing(&rate[..=i_max], &mid[..=i_max], s, peak, level)
+                .filter(|r| {
+                    *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[i_max]
+                })
+                .map(|r| (r, quantisation_sd))
         })
         .unwrap_or_else(|| {
             if j == 0 {
-                mid[0]
+                (mid[0], quantisation_sd)
             } else {
                 let (r0, r1) = (s * rate[j - 1], s * rate[j]);
                 let f = ((level - r0) / (r1 - r0)).clamp(0.0, 1.0);
-                mid[j - 1] + f * (mid[j] - mid[j - 1])
+                let dt = mid[j] - mid[j - 1];
+                // Rate noise moves the crossing by (rate noise) / (rate slope).
+                let rate_noise = noise_sigma * std::f64::consts::SQRT_2 / (w as f64 * period_s);
+                let slope = ((r1 - r0) / dt).abs().max(f64::MIN_POSITIVE);
+                let sd = quantisation_sd.hypot(rate_noise / slope).min(dt);
+                (mid[j - 1] + f * dt, sd)
             }
         });
     let pre_release_index = j.saturating_sub(1).min(n - 1);
@@ -238,8 +258,11 @@ pub fn detect_release(
             }
         }
     }
+    let mut motion_peak_sd_s = quantisation_sd;
     let (motion_peak_s, motion_peak_value, motion_peak_index) = if overshoot {
         let (tp, yp) = super::refine_extremum(t, y, ext_idx);
+        motion_peak_sd_s =
+            super::vertex_sd(t, y, ext_idx, noise_sigma).clamp(0.05 * period_s, period_s);
         (tp, yp, ext_idx)
     } else {
         // Overdamped: the end of the fast phase is where the rate falls back through the level.
@@ -277,6 +300,8 @@ pub fn detect_release(
         peak_rate_per_s: peak_rate,
         jump,
         overshoot,
+        release_sd_s,
+        motion_peak_sd_s,
     })
 }
 
