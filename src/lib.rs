@@ -45,6 +45,7 @@ pub mod report;
 pub mod rig;
 pub mod signal;
 pub mod synth;
+pub mod validate;
 
 pub use error::{Error, Result};
 pub use measure::{Flag, Status, TrialRecord};

@@ -68,6 +68,8 @@ pub struct RigProfile {
     pub click_threshold_sigma: f64,
     /// A transient whose spectral centroid is below this is a thump, not a click, Hz.
     pub min_click_centroid_hz: f64,
+    /// Upper edge of the click detection band, Hz (onsets are still picked full-band).
+    pub click_detection_top_hz: f64,
     /// Threshold crossings closer than this belong to one transient, ms.
     pub click_merge_ms: f64,
     /// Latch release is where the motion rate rises through this fraction of its peak.
@@ -100,6 +102,7 @@ impl Default for RigProfile {
             highpass_hz: 1000.0,
             click_threshold_sigma: 5.0,
             min_click_centroid_hz: 2000.0,
+            click_detection_top_hz: 20_000.0,
             click_merge_ms: 1.0,
             release_rate_fraction: 0.1,
             release_min_jump_sigma: 15.0,
@@ -193,6 +196,13 @@ impl RigProfile {
         positive("click_threshold_sigma", self.click_threshold_sigma)?;
         finite("min_click_centroid_hz", self.min_click_centroid_hz)?;
         positive("click_merge_ms", self.click_merge_ms)?;
+        positive("click_detection_top_hz", self.click_detection_top_hz)?;
+        if self.click_detection_top_hz <= self.highpass_hz {
+            return Err(Error::config(
+                "click_detection_top_hz",
+                format!("must lie above highpass_hz ({} Hz)", self.highpass_hz),
+            ));
+        }
         positive("release_rate_fraction", self.release_rate_fraction)?;
         if self.release_rate_fraction >= 1.0 {
             return Err(Error::config("release_rate_fraction", "must be below 1"));

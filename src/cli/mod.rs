@@ -19,6 +19,7 @@ use crate::pipeline::{self, Scratch, TrialSpec};
 use crate::report;
 use crate::rig::RigProfile;
 use crate::synth::{self, SampleEncoding, SynthConfig, TrialKind};
+use crate::validate;
 
 #[derive(Parser, Debug)]
 #[command(
@@ -41,6 +42,55 @@ enum Command {
     Summarize(SummarizeArgs),
     /// Write synthetic trials with known truth.
     Synth(SynthArgs),
+    /// Measure detector accuracy on synthetic trials shaped like a rig.
+    Validate(ValidateArgs),
+}
+
+#[derive(Args, Debug)]
+struct ValidateArgs {
+    /// Rig profile (JSON): clock relation and detector settings.
+    #[arg(long)]
+    rig: Option<PathBuf>,
+    /// Number of synthetic trials.
+    #[arg(long, default_value_t = 300)]
+    count: usize,
+    /// Random seed.
+    #[arg(long, default_value_t = 1)]
+    seed: u64,
+    /// Click SNR range, dB, as LO:HI.
+    #[arg(long, value_parser = parse_range, default_value = "10:40")]
+    snr_db: (f64, f64),
+    /// Audio sample rate, Hz (default 96000, or measured with --like).
+    #[arg(long)]
+    sample_rate_hz: Option<u32>,
+    /// Frame rate (default: the rig's fps, 1000, or measured with --like).
+    #[arg(long)]
+    fps: Option<f64>,
+    /// Shape the trials like the recordings in this folder (rates, click SNR, video noise).
+    #[arg(long)]
+    like: Option<PathBuf>,
+    /// Round timestamps to this many significant digits.
+    #[arg(long)]
+    timestamp_digits: Option<u32>,
+    /// Output format.
+    #[arg(long, value_enum, default_value_t = Format::Text)]
+    format: Format,
+}
+
+fn parse_range(s: &str) -> Result<(f64, f64), String> {
+    let (a, b) = s.split_once(':').ok_or("expected LO:HI, e.g. 10:40")?;
+    let lo: f64 = a
+        .trim()
+        .parse()
+        .map_err(|_| format!("{a:?} is not a number"))?;
+    let hi: f64 = b
+        .trim()
+        .parse()
+        .map_err(|_| format!("{b:?} is not a number"))?;
+    if !(lo.is_finite() && hi.is_finite() && lo <= hi) {
+        return Err(format!("{s}: need finite LO <= HI"));
+    }
+    Ok((lo, hi))
 }
 
 #[derive(Args, Debug, Clone)]
@@ -242,6 +292,7 @@ pub fn run() -> ExitCode {
             run_summarize(&args.dir)
         }
         Command::Synth(args) => run_synth(args),
+        Command::Validate(args) => run_validate(args),
     }
 }
 
@@ -399,6 +450,64 @@ fn run_synth(args: SynthArgs) -> ExitCode {
         if let Err(e) = synth::write_trial(&args.out, &trial) {
             return fail(EXIT_OUTPUT, e);
         }
+    }
+    ExitCode::SUCCESS
+}
+
+fn run_validate(args: ValidateArgs) -> ExitCode {
+    let rig = match &args.rig {
+        Some(p) => match RigProfile::from_path(p) {
+            Ok(r) => r,
+            Err(e) => return fail(EXIT_USAGE, e),
+        },
+        None => RigProfile::default(),
+    };
+    let mut config = validate::ValidateConfig {
+        count: args.count,
+        seed: args.seed,
+        snr_db: args.snr_db,
+        fps: rig.fps.unwrap_or(1000.0),
+        timestamp_digits: args.timestamp_digits,
+        ..validate::ValidateConfig::default()
+    };
+    if let Some(folder) = &args.like {
+        match validate::measure_like(folder, &rig) {
+            Ok(m) => {
+                eprintln!(
+                    "latchtime: measured {} trials in {}: {:?} Hz, {:?} fps, click SNR {:?} dB, video noise/jump {:?}",
+                    m.trials_read,
+                    folder.display(),
+                    m.sample_rate_hz,
+                    m.fps,
+                    m.snr_db,
+                    m.noise_per_jump
+                );
+                config = config.shaped_like(&m);
+            }
+            Err(e) => return fail(EXIT_USAGE, e),
+        }
+    }
+    if let Some(r) = args.sample_rate_hz {
+        config.sample_rate_hz = r;
+    }
+    if let Some(f) = args.fps {
+        config.fps = f;
+    }
+    let rate_ok = (1000..=1_000_000).contains(&config.sample_rate_hz);
+    let fps_ok = config.fps > 0.0 && config.fps.is_finite();
+    if !(rate_ok && fps_ok) {
+        return fail(
+            EXIT_USAGE,
+            "sample rate must be 1000..1000000 Hz and fps positive",
+        );
+    }
+    let report = validate::validate(&rig, &config);
+    match args.format {
+        Format::Json => match serde_json::to_string_pretty(&report) {
+            Ok(text) => println!("{text}"),
+            Err(e) => return fail(EXIT_OUTPUT, e),
+        },
+        Format::Text => print!("{}", report::validate::render(&report)),
     }
     ExitCode::SUCCESS
 }

@@ -14,6 +14,15 @@ pub struct Section {
 /// Butterworth high-pass of even `order` (2, 4, 6...) at `corner_hz` for `sample_rate_hz`.
 /// The corner is clamped below 0.45 of the sample rate so the design stays stable.
 pub fn butterworth_highpass(order: usize, corner_hz: f64, sample_rate_hz: f64) -> Vec<Section> {
+    butterworth(order, corner_hz, sample_rate_hz, true)
+}
+
+/// Butterworth low-pass of even `order` at `corner_hz` (clamped below 0.45 of the rate).
+pub fn butterworth_lowpass(order: usize, corner_hz: f64, sample_rate_hz: f64) -> Vec<Section> {
+    butterworth(order, corner_hz, sample_rate_hz, false)
+}
+
+fn butterworth(order: usize, corner_hz: f64, sample_rate_hz: f64, high: bool) -> Vec<Section> {
     let order = order.max(2) & !1;
     let corner = corner_hz.clamp(1e-6 * sample_rate_hz, 0.45 * sample_rate_hz);
     let w0 = 2.0 * std::f64::consts::PI * corner / sample_rate_hz;
@@ -25,12 +34,14 @@ pub fn butterworth_highpass(order: usize, corner_hz: f64, sample_rate_hz: f64) -
             let q = -1.0 / (2.0 * theta.cos());
             let alpha = sin / (2.0 * q);
             let a0 = 1.0 + alpha;
+            // RBJ biquads: the bilinear transform with the corner pre-warped.
+            let b = if high {
+                [(1.0 + cos) / 2.0, -(1.0 + cos), (1.0 + cos) / 2.0]
+            } else {
+                [(1.0 - cos) / 2.0, 1.0 - cos, (1.0 - cos) / 2.0]
+            };
             Section {
-                b: [
-                    (1.0 + cos) / 2.0 / a0,
-                    -(1.0 + cos) / a0,
-                    (1.0 + cos) / 2.0 / a0,
-                ],
+                b: b.map(|v| v / a0),
                 a: [-2.0 * cos / a0, (1.0 - alpha) / a0],
             }
         })
@@ -136,6 +147,13 @@ mod tests {
         // 4th order: 24 dB per octave, so 100 Hz (3.3 octaves down) is about -80 dB.
         let g100 = 20.0 * gain_at(&s, 100.0, 96_000.0).log10();
         assert!((-82.0..-78.0).contains(&g100), "{g100}");
+    }
+
+    #[test]
+    fn butterworth_lowpass_is_minus_3_db_at_the_corner() {
+        let s = butterworth_lowpass(4, 20_000.0, 96_000.0);
+        assert!((gain_at(&s, 20_000.0, 96_000.0) - std::f64::consts::FRAC_1_SQRT_2).abs() < 1e-9);
+        assert!((gain_at(&s, 100.0, 96_000.0) - 1.0).abs() < 1e-6);
     }
 
     #[test]

@@ -245,6 +245,7 @@ impl From<&RigProfile> for click::ClickConfig {
             threshold_sigma: rig.click_threshold_sigma,
             merge_ms: rig.click_merge_ms,
             min_centroid_hz: rig.min_click_centroid_hz,
+            detection_top_hz: rig.click_detection_top_hz,
         }
     }
 }

@@ -5,3 +5,4 @@ pub mod csv;
 pub mod groups;
 pub mod json;
 pub mod text;
+pub mod validate;

@@ -1,0 +1,137 @@
+//! The accuracy figures of `latchtime validate` at three rigs, with a fixed seed, guarded with
+//! margins. Each assertion names the target it checks. Where a target is not met yet, the
+//! assertion guards today's measured level instead and says so, so that a regression shows and
+//! an improvement can tighten it.
+
+use latchtime::synth;
+use latchtime::validate::{validate, ValidateConfig, ValidationReport};
+use latchtime::RigProfile;
+
+fn run(sample_rate_hz: u32, fps: f64) -> ValidationReport {
+    let rig = RigProfile::from_json(synth::DEMO_RIG_JSON).unwrap();
+    let config = ValidateConfig {
+        count: 300,
+        seed: 1,
+        sample_rate_hz,
+        fps,
+        ..ValidateConfig::default()
+    };
+    validate(&rig, &config)
+}
+
+fn event<'a>(
+    r: &'a ValidationReport,
+    name: &str,
+    band: &str,
+) -> &'a latchtime::validate::EventAccuracy {
+    r.events
+        .iter()
+        .find(|e| e.event == name && e.band == band)
+        .unwrap_or_else(|| panic!("no row {name} / {band}"))
+}
+
+fn flag<'a>(r: &'a ValidationReport, name: &str) -> &'a latchtime::validate::FlagAccuracy {
+    r.flags.iter().find(|f| f.flag == name).unwrap()
+}
+
+fn check(r: &ValidationReport, video_release_median_frames: f64) {
+    let at = format!("{} Hz / {} fps", r.config.sample_rate_hz, r.config.fps);
+    assert_eq!(r.errors, 0, "{at}");
+    // Target: click onset median <= 20 us, p95 <= 100 us at SNR >= 10 dB.
+    let click = event(r, "click_onset_s", "all");
+    assert!(click.median_abs_error.unwrap() <= 20.0, "{at}: {click:?}");
+    assert!(click.p95_abs_error.unwrap() <= 100.0, "{at}: {click:?}");
+    // Target: misses <= 1 %. Not met at 10-13 dB peak SNR for 48 and 96 kHz (about 5 %
+    // measured, all in the 10-20 dB band); guarded at 6 %.
+    assert!(
+        (click.misses as f64) <= 0.06 * click.n as f64,
+        "{at}: {click:?}"
+    );
+    let strong = event(r, "click_onset_s", ">= 30 dB");
+    assert_eq!(strong.misses, 0, "{at}: {strong:?}");
+    // Target: audio-refined release median <= 0.05 ms.
+    let refined = event(r, "latch_release_s (audio-refined)", "all");
+    assert!(
+        refined.median_abs_error.unwrap() <= 0.05,
+        "{at}: {refined:?}"
+    );
+    // Target: video-only release median <= 0.3 frame (met at 500 and 1000 fps; 0.51 measured
+    // at 4000 fps, guarded there at 0.6).
+    let video = event(r, "latch_release_video_s", "all");
+    assert!(
+        video.median_abs_error.unwrap() <= video_release_median_frames,
+        "{at}: {video:?}"
+    );
+    // Target: motion peak median <= 0.3 frame.
+    let peak = event(r, "motion_peak_s", "all");
+    assert!(peak.median_abs_error.unwrap() <= 0.3, "{at}: {peak:?}");
+    // Target: loading onset and loading_ms median <= 5 %, p95 <= 20 % of the loading time,
+    // and the 95 % interval covering the truth about as often as it claims (>= 85 % here).
+    for name in ["loading_onset_s", "loading_ms"] {
+        let e = event(r, name, "all");
+        assert!(
+            e.median_abs_error.unwrap() <= 5.0 && e.p95_abs_error.unwrap() <= 20.0,
+            "{at}: {e:?}"
+        );
+    }
+    let coverage = event(r, "loading_onset_s", "all").coverage_95.unwrap();
+    assert!(coverage >= 0.85, "{at}: coverage {coverage}");
+    // Target: release_ms and amplification median <= 10 %, p95 <= 25 %.
+    for name in ["release_ms", "amplification"] {
+        let e = event(r, name, "all");
+        assert!(
+            e.median_abs_error.unwrap() <= 10.0 && e.p95_abs_error.unwrap() <= 25.0,
+            "{at}: {e:?}"
+        );
+    }
+    // Target: amplitude ratio median absolute error <= 0.05.
+    assert!(
+        event(r, "amplitude_ratio", "all").median_abs_error.unwrap() <= 0.05,
+        "{at}"
+    );
+    // Target: clipped precision and recall >= 0.97; frame_gaps exact.
+    let clipped = flag(r, "clipped");
+    assert!(
+        clipped.precision.unwrap() >= 0.97 && clipped.recall.unwrap() >= 0.97,
+        "{at}: {clipped:?}"
+    );
+    let gaps = flag(r, "frame_gaps");
+    assert!(
+        gaps.false_positives == 0 && gaps.false_negatives == 0,
+        "{at}: {gaps:?}"
+    );
+    // Target: sync_mismatch recall >= 0.9 for offsets of 5 ms or more, false alarms <= 2 %.
+    let sync = flag(r, "sync_mismatch");
+    assert!(
+        sync.recall.unwrap() >= 0.9 && sync.false_alarm_rate.unwrap() <= 0.021,
+        "{at}: {sync:?}"
+    );
+    // Target: double_click and no_click precision and recall >= 0.97. Not met: weak clicks
+    // (10-13 dB) go unseen, which misses second clicks and makes no_click false positives.
+    // Guarded at today's levels less a margin.
+    let double = flag(r, "double_click");
+    assert!(
+        double.precision.unwrap() >= 0.85 && double.recall.unwrap() >= 0.65,
+        "{at}: {double:?}"
+    );
+    let none = flag(r, "no_click");
+    assert!(
+        none.precision.unwrap() >= 0.65 && none.recall.unwrap() >= 0.95,
+        "{at}: {none:?}"
+    );
+}
+
+#[test]
+fn validation_at_48_khz_and_500_fps_meets_the_guarded_targets() {
+    check(&run(48_000, 500.0), 0.3);
+}
+
+#[test]
+fn validation_at_96_khz_and_1000_fps_meets_the_guarded_targets() {
+    check(&run(96_000, 1000.0), 0.3);
+}
+
+#[test]
+fn validation_at_250_khz_and_4000_fps_meets_the_guarded_targets() {
+    check(&run(250_000, 4000.0), 0.6);
+}
