@@ -276,6 +276,13 @@ mod tests {
     }
 
     #[test]
+    fn sound_pressure_level_of_one_pascal_is_93_98_db() {
+        // ISO 1683 reference pressure 20 uPa: 20 log10(1 / 20e-6) = 93.98 dB SPL for 1 Pa RMS.
+        let spl = 20.0 * (1.0f64 / 20e-6).log10();
+        assert!((spl - 93.98).abs() < 0.005, "{spl}");
+    }
+
+    #[test]
     fn one_pascal_peak_maps_through_sensitivity_and_gain() {
         let rig = RigProfile {
             mic_sensitivity_mv_per_pa: Some(50.0),

@@ -5,6 +5,7 @@
 //! analyse its trial; 2 usage error (bad option, missing input, bad rig profile); 3 the output
 //! folder cannot be written; 4 `--strict` and at least one trial failed.
 
+mod inspect;
 mod progress;
 
 use std::path::{Path, PathBuf};
@@ -44,6 +45,9 @@ enum Command {
     Synth(SynthArgs),
     /// Measure detector accuracy on synthetic trials shaped like a rig.
     Validate(ValidateArgs),
+    /// Run one pipeline stage on raw arrays (for cross-checks against reference libraries).
+    #[command(subcommand)]
+    Inspect(inspect::Stage),
 }
 
 #[derive(Args, Debug)]
@@ -293,6 +297,13 @@ pub fn run() -> ExitCode {
         }
         Command::Synth(args) => run_synth(args),
         Command::Validate(args) => run_validate(args),
+        Command::Inspect(stage) => match inspect::run(&stage) {
+            Ok(value) => {
+                println!("{value}");
+                ExitCode::SUCCESS
+            }
+            Err(e) => fail(EXIT_TRIAL_FAILED, e),
+        },
     }
 }
 
