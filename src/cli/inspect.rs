@@ -132,7 +132,7 @@ pub fn run(stage: &Stage) -> Result<serde_json::Value> {
         }
         Stage::Fit { input, fps, noise } => {
             let y = read_f64(input)?;
-            if y.len() < 16 || !(*fps > 0.0) {
+            if y.len() < 16 || fps.is_nan() || *fps <= 0.0 {
                 return Err(Error::Usage(
                     "fit needs at least 16 samples and a positive --fps".into(),
                 ));
