@@ -143,4 +143,9 @@ fn main() {
     let s = small_dir.to_string_lossy().into_owned();
     let (secs, mb) = run(&["batch", &s, "--out", &small_out, "--quiet", "--jobs", "2"]);
     println!("batch {small} trials --jobs 2: {secs:6.2} s, peak RSS {mb:6.1} MB");
+    let (secs, mb) = run(&["report", &small_out]);
+    println!(
+        "report over {small} trials: {secs:6.2} s ({:.2} ms per trial), peak RSS {mb:6.1} MB",
+        secs / small as f64 * 1e3
+    );
 }

@@ -41,6 +41,8 @@ enum Command {
     Batch(BatchArgs),
     /// Rebuild summary.csv and groups.csv of an output folder from its records.
     Summarize(SummarizeArgs),
+    /// Write the review page report.html and per-trial figures for an output folder.
+    Report(ReportArgs),
     /// Write synthetic trials with known truth.
     Synth(SynthArgs),
     /// Measure detector accuracy on synthetic trials shaped like a rig.
@@ -161,6 +163,17 @@ struct BatchArgs {
     /// Exit with status 4 when any trial failed.
     #[arg(long)]
     strict: bool,
+    /// Also write report.html and plots/NAME.svg for review.
+    #[arg(long)]
+    report: bool,
+}
+
+#[derive(Args, Debug)]
+struct ReportArgs {
+    /// Output folder of a batch.
+    dir: PathBuf,
+    #[command(flatten)]
+    rig: RigArgs,
 }
 
 #[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
@@ -296,6 +309,13 @@ pub fn run() -> ExitCode {
             run_summarize(&args.dir)
         }
         Command::Synth(args) => run_synth(args),
+        Command::Report(args) => {
+            let rig = match args.rig.profile() {
+                Ok(r) => r,
+                Err(e) => return fail(EXIT_USAGE, e),
+            };
+            run_report(&args.dir, &rig)
+        }
         Command::Validate(args) => run_validate(args),
         Command::Inspect(stage) => match inspect::run(&stage) {
             Ok(value) => {
@@ -380,10 +400,37 @@ fn run_batch(args: BatchArgs) -> ExitCode {
             args.out.join("summary.csv").display()
         );
     }
+    if args.report {
+        let code = run_report(&args.out, &config.rig);
+        if code != ExitCode::SUCCESS {
+            return code;
+        }
+    }
     if args.strict && outcome.errors > 0 {
         return ExitCode::from(EXIT_STRICT);
     }
     ExitCode::SUCCESS
+}
+
+fn run_report(dir: &Path, rig: &RigProfile) -> ExitCode {
+    if !dir.join("trials").is_dir() {
+        return fail(
+            EXIT_USAGE,
+            format!("{}: not a batch output folder (no trials/)", dir.display()),
+        );
+    }
+    match batch::write_report(dir, rig) {
+        Ok(o) => {
+            if o.inputs_missing > 0 {
+                eprintln!(
+                    "latchtime: {} of {} trials' input files could not be read again; their figures show the record only",
+                    o.inputs_missing, o.trials
+                );
+            }
+            ExitCode::SUCCESS
+        }
+        Err(e) => fail(EXIT_OUTPUT, e),
+    }
 }
 
 fn run_summarize(dir: &Path) -> ExitCode {

@@ -267,7 +267,23 @@ fn symphonia_error(path: &Path, e: SymphoniaError) -> Error {
     }
 }
 
+/// Runs symphonia, turning a panic inside it (seen on hostile headers, e.g. a zero sample
+/// rate in a RIFF header) into an error naming the file.
 fn decode_with_symphonia(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSignal> {
+    std::panic::catch_unwind(|| symphonia_decode(path, bytes, channel)).unwrap_or_else(|panic| {
+        let what = panic
+            .downcast_ref::<&str>()
+            .map(|s| s.to_string())
+            .or_else(|| panic.downcast_ref::<String>().cloned())
+            .unwrap_or_else(|| "unknown".into());
+        Err(Error::malformed(
+            path,
+            format!("the audio decoder gave up on this file ({what})"),
+        ))
+    })
+}
+
+fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSignal> {
     let stream = MediaSourceStream::new(Box::new(Cursor::new(bytes.to_vec())), Default::default());
     let mut hint = Hint::new();
     if let Some(ext) = path.extension().and_then(|e| e.to_str()) {

@@ -32,6 +32,12 @@ pub struct Oscillation {
     pub extrema_used: usize,
     /// Standard uncertainty of `amplitude_ratio` from the fit's covariance (null without a fit).
     pub amplitude_ratio_sd: Option<f64>,
+    /// The fitted model [c, a, b, s, wd]: y = c + e^{-s u}(a cos wd u + b sin wd u), u = t -
+    /// `model_t0_s` (video clock); null without a fit. For drawing the fit over the data.
+    #[serde(default)]
+    pub model: Option<[f64; 5]>,
+    #[serde(default)]
+    pub model_t0_s: Option<f64>,
 }
 
 /// Most extrema used: the first few cycles carry the decay; later ones drown in noise.
@@ -50,6 +56,8 @@ pub fn from_ratio(frequency_hz: f64, amplitude_ratio: f64, extrema_used: usize) 
                 .sqrt(),
         extrema_used,
         amplitude_ratio_sd: None,
+        model: None,
+        model_t0_s: None,
     }
 }
 
@@ -166,6 +174,10 @@ pub fn detect_oscillation(
     }
     let mut oscillation = from_ratio(frequency_hz, amplitude_ratio, times.len());
     oscillation.amplitude_ratio_sd = ratio_sd;
+    if let Some((p, _)) = fitted {
+        oscillation.model = Some(p);
+        oscillation.model_t0_s = Some(peak.0);
+    }
     Some((oscillation, first_extremum_s))
 }
 

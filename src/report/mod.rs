@@ -3,6 +3,8 @@
 
 pub mod csv;
 pub mod groups;
+pub mod html;
 pub mod json;
+pub mod plots;
 pub mod text;
 pub mod validate;

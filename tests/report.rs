@@ -1,0 +1,81 @@
+//! The review report over the sample data: report.html is well-formed (it is written as
+//! XHTML-compatible HTML, so an XML parser must accept it), every trial appears once in the
+//! table, and every linked figure exists and parses as SVG.
+
+mod common;
+
+use common::{bin, repo};
+
+fn parse_xml(text: &str) -> Result<usize, String> {
+    let mut reader = quick_xml::Reader::from_str(text);
+    let mut elements = 0;
+    loop {
+        match reader.read_event() {
+            Ok(quick_xml::events::Event::Eof) => return Ok(elements),
+            Ok(quick_xml::events::Event::Start(_)) | Ok(quick_xml::events::Event::Empty(_)) => {
+                elements += 1
+            }
+            Ok(_) => {}
+            Err(e) => return Err(format!("at byte {}: {e}", reader.buffer_position())),
+        }
+    }
+}
+
+#[test]
+fn report_over_the_sample_data_links_a_figure_for_every_trial() {
+    let out = tempfile::tempdir().unwrap();
+    bin()
+        .current_dir(repo())
+        .args([
+            "batch",
+            "sample-audio/manifest.csv",
+            "--quiet",
+            "--report",
+            "--rig",
+            "calibration/demo-rig.json",
+            "--out",
+        ])
+        .arg(out.path())
+        .assert()
+        .success();
+    let html = std::fs::read_to_string(out.path().join("report.html")).unwrap();
+    let elements = parse_xml(&html).unwrap_or_else(|e| panic!("report.html does not parse: {e}"));
+    assert!(elements > 100);
+    // No network: the only URLs are the SVG namespace declarations.
+    for (i, _) in html.match_indices("http") {
+        assert!(
+            html[i..].starts_with("http://www.w3.org/2000/svg"),
+            "external reference at {i}"
+        );
+    }
+    let names: Vec<String> = std::fs::read_dir(repo().join("sample-audio"))
+        .unwrap()
+        .flatten()
+        .filter_map(|e| {
+            e.file_name()
+                .to_string_lossy()
+                .strip_suffix(".truth.json")
+                .map(str::to_string)
+        })
+        .collect();
+    assert_eq!(names.len(), 14);
+    for name in &names {
+        let cell = format!("<td>{name}</td>");
+        assert_eq!(html.matches(&cell).count(), 1, "{name} rows");
+        let link = format!("href=\"plots/{name}.svg\"");
+        assert!(html.contains(&link), "{name} link");
+        let svg = std::fs::read_to_string(out.path().join(format!("plots/{name}.svg"))).unwrap();
+        parse_xml(&svg).unwrap_or_else(|e| panic!("{name}.svg does not parse: {e}"));
+        assert!(svg.contains(name.as_str()), "{name}.svg has no title");
+    }
+    // Flagged trials are listed before the others.
+    let first_ok = html.find("<tr class=\"ok\">").unwrap();
+    let last_flagged = html.rfind("<tr class=\"flagged\">").unwrap();
+    assert!(last_flagged < first_ok);
+}
+
+#[test]
+fn report_command_on_a_folder_without_records_is_a_usage_error() {
+    let dir = tempfile::tempdir().unwrap();
+    bin().arg("report").arg(dir.path()).assert().code(2);
+}
