@@ -53,5 +53,14 @@ impl Error {
     }
 }
 
+/// The message carried by a caught panic, for an error record.
+pub fn panic_message(panic: &(dyn std::any::Any + Send)) -> String {
+    panic
+        .downcast_ref::<&str>()
+        .map(|s| s.to_string())
+        .or_else(|| panic.downcast_ref::<String>().cloned())
+        .unwrap_or_else(|| "unknown panic".into())
+}
+
 /// Result alias used across the library.
 pub type Result<T> = std::result::Result<T, Error>;

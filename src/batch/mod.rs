@@ -207,11 +207,7 @@ fn process(
                 pipeline::analyze(spec, &inputs, &config.rig, scratch)
             }));
             analysed.unwrap_or_else(|panic| {
-                let what = panic
-                    .downcast_ref::<&str>()
-                    .map(|s| s.to_string())
-                    .or_else(|| panic.downcast_ref::<String>().cloned())
-                    .unwrap_or_else(|| "unknown panic".into());
+                let what = crate::error::panic_message(panic.as_ref());
                 *scratch = Scratch::default();
                 TrialRecord::failed(
                     &spec.name,
@@ -233,19 +229,7 @@ fn process(
 /// in name order, reading one record at a time. Unreadable record files are skipped and
 /// returned.
 pub fn write_summary(out_dir: &Path) -> Result<Vec<PathBuf>> {
-    let dir = trials_dir(out_dir);
-    let mut paths: Vec<PathBuf> = std::fs::read_dir(&dir)
-        .map_err(|e| Error::io(&dir, e))?
-        .flatten()
-        .map(|e| e.path())
-        .filter(|p| {
-            p.extension().is_some_and(|e| e == "json")
-                && !p
-                    .file_name()
-                    .is_some_and(|n| n.to_string_lossy().starts_with('.'))
-        })
-        .collect();
-    paths.sort();
+    let paths = record_paths(out_dir)?;
     let summary = out_dir.join("summary.csv");
     let csv_err = |e: csv::Error| Error::malformed(&summary, e.to_string());
     let mut unreadable = Vec::new();

@@ -271,11 +271,7 @@ fn symphonia_error(path: &Path, e: SymphoniaError) -> Error {
 /// rate in a RIFF header) into an error naming the file.
 fn decode_with_symphonia(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSignal> {
     std::panic::catch_unwind(|| symphonia_decode(path, bytes, channel)).unwrap_or_else(|panic| {
-        let what = panic
-            .downcast_ref::<&str>()
-            .map(|s| s.to_string())
-            .or_else(|| panic.downcast_ref::<String>().cloned())
-            .unwrap_or_else(|| "unknown".into());
+        let what = crate::error::panic_message(panic.as_ref());
         Err(Error::malformed(
             path,
             format!("the audio decoder gave up on this file ({what})"),

@@ -181,6 +181,23 @@ pub fn detect_oscillation(
     Some((oscillation, first_extremum_s))
 }
 
+/// The model c + e^{-s u}(a cos w u + b sin w u) at u, and its gradient in [c, a, b, s, w].
+fn model_and_gradient(p: &[f64; 5], u: f64) -> (f64, [f64; 5]) {
+    let e = (-p[3] * u).exp();
+    let (sn, cs) = (p[4] * u).sin_cos();
+    let osc = p[1] * cs + p[2] * sn;
+    (
+        p[0] + e * osc,
+        [
+            1.0,
+            e * cs,
+            e * sn,
+            -u * e * osc,
+            u * e * (-p[1] * sn + p[2] * cs),
+        ],
+    )
+}
+
 /// Parameters [c, a, b, s, w] of a damped-oscillation fit and their covariance matrix.
 pub type DampedFit = ([f64; 5], [[f64; 5]; 5]);
 
@@ -191,13 +208,7 @@ pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<Damp
     let residual_ss = |p: &[f64; 5]| -> f64 {
         t.iter()
             .zip(y)
-            .map(|(&t, &y)| {
-                let u = t - t0;
-                let e = (-p[3] * u).exp();
-                let (sn, cs) = (p[4] * u).sin_cos();
-                let r = y - (p[0] + e * (p[1] * cs + p[2] * sn));
-                r * r
-            })
+            .map(|(&t, &y)| (y - model_and_gradient(p, t - t0).0).powi(2))
             .sum()
     };
     let mut p = start;
@@ -207,18 +218,8 @@ pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<Damp
         let mut jtj = [[0.0f64; 5]; 5];
         let mut jtr = [0.0f64; 5];
         for (&t, &y) in t.iter().zip(y) {
-            let u = t - t0;
-            let e = (-p[3] * u).exp();
-            let (sn, cs) = (p[4] * u).sin_cos();
-            let osc = p[1] * cs + p[2] * sn;
-            let r = y - (p[0] + e * osc);
-            let j = [
-                1.0,
-                e * cs,
-                e * sn,
-                -u * e * osc,
-                u * e * (-p[1] * sn + p[2] * cs),
-            ];
+            let (value, j) = model_and_gradient(&p, t - t0);
+            let r = y - value;
             for a in 0..5 {
                 jtr[a] += j[a] * r;
                 for b in 0..5 {
@@ -257,17 +258,7 @@ pub fn fit_damped(t: &[f64], y: &[f64], t0: f64, start: [f64; 5]) -> Option<Damp
     }
     let mut jtj = [[0.0f64; 5]; 5];
     for &t in t {
-        let u = t - t0;
-        let e = (-p[3] * u).exp();
-        let (sn, cs) = (p[4] * u).sin_cos();
-        let osc = p[1] * cs + p[2] * sn;
-        let j = [
-            1.0,
-            e * cs,
-            e * sn,
-            -u * e * osc,
-            u * e * (-p[1] * sn + p[2] * cs),
-        ];
+        let (_, j) = model_and_gradient(&p, t - t0);
         for a in 0..5 {
             for b in 0..5 {
                 jtj[a][b] += j[a] * j[b];
