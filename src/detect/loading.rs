@@ -1,5 +1,6 @@
 //! Loading onset by two-phase regression: the measure is flat, then drifts,
-//! y = a + b h + c h^2 with h = max(0, t - tau). The quadratic term lets a drift start gently
+//! y = a + b h + c h^2 with h = max(0, t - tau), or the straight hinge (c = 0) when the
+//! curvature does not reduce the residual beyond noise (nested F test). The quadratic term lets a drift start gently
 //! (muscles and motors seldom ramp up at once), which a straight hinge would time late with an
 //! overconfident interval. For every candidate tau on the frame clock the least-squares fit
 //! comes from running power sums in O(1), so the whole search is one pass; the best tau is
@@ -94,29 +95,50 @@ pub fn detect_loading(t: &[f64], y: &[f64], end: usize, period_s: f64) -> Option
     if f_statistic < MIN_F || k_best == 0 {
         return None;
     }
-    let mut onset = tt[k_best];
-    if let (Some(Some(a)), Some(Some(c))) = (sse.get(k_best.wrapping_sub(1)), sse.get(k_best + 1)) {
-        if let Some((tv, _)) = super::parabola_vertex(
-            (tt[k_best - 1], a.0),
-            (tt[k_best], sse_min),
-            (tt[k_best + 1], c.0),
+    // Best tau of a profile, refined between frames by a parabola through its neighbours.
+    let refine = |profile: &[Option<f64>], k: usize| -> f64 {
+        match (
+            profile.get(k.wrapping_sub(1)).copied().flatten(),
+            profile.get(k + 1).copied().flatten(),
         ) {
-            if tv >= tt[k_best - 1] && tv <= tt[k_best + 1] {
-                onset = tv;
-            }
+            (Some(a), Some(c)) => match super::parabola_vertex(
+                (tt[k - 1], a),
+                (tt[k], profile[k].unwrap_or(a)),
+                (tt[k + 1], c),
+            ) {
+                Some((tv, _)) if tv >= tt[k - 1] && tv <= tt[k + 1] => tv,
+                _ => tt[k],
+            },
+            _ => tt[k],
         }
-    }
-    // The interval's ends are interpolated between frames, where the profile crosses the limit.
-    let limit = sse_min.max(1e-300) * (3.84 / nf).exp();
-    let profile: Vec<Option<f64>> = sse.iter().map(|v| v.map(|v| v.0)).collect();
-    let statistical_s = super::profile_half_width(&tt, &profile, k_best, limit);
-    // Where a straight and a gently curving start disagree, neither is known to be the true
-    // shape: their difference joins the interval in quadrature (model-form uncertainty).
-    let linear_best = (0..m.saturating_sub(3))
-        .filter_map(|k| sse_linear(k).map(|v| (k, v)))
+    };
+    let curved: Vec<Option<f64>> = sse.iter().map(|v| v.map(|v| v.0)).collect();
+    let straight: Vec<Option<f64>> = (0..m)
+        .map(|k| if k + 3 < m { sse_linear(k) } else { None })
+        .collect();
+    let (k_line, sse_line) = straight
+        .iter()
+        .enumerate()
+        .filter_map(|(k, v)| v.map(|v| (k, v)))
         .min_by(|a, b| a.1.total_cmp(&b.1))
-        .map_or(onset, |(k, _)| tt[k]);
-    let half_width_s = statistical_s.hypot(1.96 * (linear_best - onset).abs());
+        .unwrap_or((k_best, sse_min));
+    let onset_curved = refine(&curved, k_best);
+    let onset_straight = refine(&straight, k_line);
+    // Nested models: keep the straight hinge unless the curvature term reduces the residual
+    // by more than its own noise share (F(1, n) above 1, a lenient test, because a curved
+    // start read as straight comes late while a straight one read as curved comes early).
+    let curvature_f = (sse_line - sse_min) / (sse_min.max(1e-300) / (nf - 4.0));
+    let (onset, profile, k_chosen, sse_chosen) = if curvature_f > 1.0 {
+        (onset_curved, &curved, k_best, sse_min)
+    } else {
+        (onset_straight, &straight, k_line, sse_line)
+    };
+    // The interval's ends are interpolated between frames, where the profile crosses the limit.
+    let limit = sse_chosen.max(1e-300) * (3.84 / nf).exp();
+    let statistical_s = super::profile_half_width(&tt, profile, k_chosen, limit);
+    // Where the straight and the curved start disagree, neither is known to be the true
+    // shape: their difference joins the interval in quadrature (model-form uncertainty).
+    let half_width_s = statistical_s.hypot(1.96 * (onset_straight - onset_curved).abs());
     Some(LoadingOnset {
         onset_s: onset + t0,
         uncertainty_ms: half_width_s.max(0.5 * period_s) * 1e3,
