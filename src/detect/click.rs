@@ -242,6 +242,7 @@ pub fn scan_transients(
             }
         }
     }
+    let mut spread_cache = None;
     for (w0, w1) in windows {
         scan_window(
             signal,
@@ -252,6 +253,7 @@ pub fn scan_transients(
             config,
             scratch,
             &mut transients,
+            &mut spread_cache,
         );
         if transients.len() >= MAX_TRANSIENTS {
             transients.truncate(MAX_TRANSIENTS);
@@ -275,6 +277,7 @@ fn scan_window(
     config: &ClickConfig,
     scratch: &mut ClickScratch,
     transients: &mut Vec<Transient>,
+    spread_cache: &mut Option<f64>,
 ) {
     let fs = signal.sample_rate_hz;
     let x = &signal.samples[w0..w1];
@@ -307,20 +310,33 @@ fn scan_window(
     let band_var = (MAD_TO_SIGMA * super::median_in_place(&mut mags))
         .powi(2)
         .max(1e-300);
-    let c0: f64 = quiet.iter().map(|v| v * v).sum::<f64>().max(1e-300);
-    let max_lag =
-        ((4.0 * fs / band_hz).ceil() as usize).clamp(1, quiet.len().saturating_sub(1).max(1));
-    let rho2: f64 = (1..=max_lag)
-        .map(|j| {
-            let cj: f64 = quiet
-                .iter()
-                .zip(&quiet[j.min(quiet.len())..])
-                .map(|(a, b)| a * b)
-                .sum();
-            (cj / c0).powi(2)
-        })
-        .sum();
-    let spread = 1.0 + 2.0 * rho2;
+    // The noise's correlation depends on the band and the recording, not on the window:
+    // measured once per signal, on the first quiet lead-in (a window without one measures
+    // for itself and is not cached).
+    let has_lead = lead > (5e-3 * fs) as usize;
+    let measure_spread = || {
+        // 2048 samples pin the correlations to a few percent.
+        let quiet = &quiet[..quiet.len().min(2048)];
+        let c0: f64 = quiet.iter().map(|v| v * v).sum::<f64>().max(1e-300);
+        let max_lag =
+            ((4.0 * fs / band_hz).ceil() as usize).clamp(1, quiet.len().saturating_sub(1).max(1));
+        let rho2: f64 = (1..=max_lag)
+            .map(|j| {
+                let cj: f64 = quiet
+                    .iter()
+                    .zip(&quiet[j.min(quiet.len())..])
+                    .map(|(a, b)| a * b)
+                    .sum();
+                (cj / c0).powi(2)
+            })
+            .sum();
+        1.0 + 2.0 * rho2
+    };
+    let spread = match (has_lead, *spread_cache) {
+        (_, Some(cached)) => cached,
+        (true, None) => *spread_cache.get_or_insert_with(measure_spread),
+        (false, None) => measure_spread(),
+    };
     let b1 = ((0.25e-3 * fs).round() as usize).max(8);
     let b2 = ((1e-3 * fs).round() as usize).max(4 * b1);
     let dof = |b: usize| ((b as f64 / spread).floor() as usize).clamp(1, b);
