@@ -315,8 +315,6 @@ fn scan_window(
     // for itself and is not cached).
     let has_lead = lead > (5e-3 * fs) as usize;
     let measure_spread = || {
-        // 2048 samples pin the correlations to a few percent.
-        let quiet = &quiet[..quiet.len().min(2048)];
         let c0: f64 = quiet.iter().map(|v| v * v).sum::<f64>().max(1e-300);
         let max_lag =
             ((4.0 * fs / band_hz).ceil() as usize).clamp(1, quiet.len().saturating_sub(1).max(1));
