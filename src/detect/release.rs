@@ -79,12 +79,13 @@ const MIN_WINDOW_SIGMA: f64 = 8.0;
 /// Start of an accelerating motion: least-squares fit, to the frames `..end`, of a straight
 /// line (the slow drift before) joined at tau by a parabola (constant initial acceleration, as
 /// of a spring let go from rest): y = a + b t + q max(0, t - tau)^2. tau runs over the frames
-/// of a window reaching `4 * edge` frames (at least 20) before `end`; the best is refined
+/// of a window reaching `3 * edge` frames (at least 12) before `end` (short, so that the
+/// straight line stays local: a latch may creep before it snaps); the best is refined
 /// between frames by a parabola through the residual sums of squares. Returns tau and its
 /// standard uncertainty (the 95 % likelihood interval's half-width over 1.96).
 fn accelerating_onset(t: &[f64], y: &[f64], end: usize, edge: usize) -> Option<(f64, f64)> {
     let end = end.min(y.len());
-    let start = end.saturating_sub((4 * edge).max(20));
+    let start = end.saturating_sub((3 * edge).max(12));
     let (tw, yw) = (&t[start..end], &y[start..end]);
     if tw.len() < 8 {
         return None;
