@@ -76,14 +76,11 @@ fn try_analyze(
         _ => None,
     };
     let frames = match (&spec.frames, &inputs.frames) {
-        (Some(path), Some(bytes)) => {
-            let options = FrameOptions {
-                motion_column: rig.frames_column.clone(),
-                loading_column: rig.loading_column.clone(),
-                fps: rig.fps,
-            };
-            Some(decode::decode_frames(path, bytes, &options)?)
-        }
+        (Some(path), Some(bytes)) => Some(decode::decode_frames(
+            path,
+            bytes,
+            &FrameOptions::from(rig),
+        )?),
         _ => None,
     };
     if audio.is_none() && frames.is_none() {

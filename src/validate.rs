@@ -88,12 +88,7 @@ pub fn measure_like(folder: &Path, rig: &RigProfile) -> Result<MeasuredRig> {
             }
         }
         if let (Some(path), Some(bytes)) = (&t.spec.frames, &inputs.frames) {
-            let options = decode::FrameOptions {
-                motion_column: rig.frames_column.clone(),
-                loading_column: rig.loading_column.clone(),
-                fps: rig.fps,
-            };
-            if let Ok(f) = decode::decode_frames(path, bytes, &options) {
+            if let Ok(f) = decode::decode_frames(path, bytes, &rig.into()) {
                 let v = detect::detect_video(&f, rig);
                 fps.push(1.0 / v.clock.period_s);
                 if let Some(m) = &v.motion {

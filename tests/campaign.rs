@@ -9,7 +9,7 @@ use std::collections::BTreeMap;
 use std::path::Path;
 use std::time::Duration;
 
-use common::{bin, read_json};
+use common::{bin, quiet_batch, read_json};
 
 fn synth(dir: &Path, count: usize) {
     bin()
@@ -41,14 +41,7 @@ fn a_batch_killed_at_any_point_resumes_to_identical_records() {
     let data = tempfile::tempdir().unwrap();
     synth(data.path(), 40);
     let reference = tempfile::tempdir().unwrap();
-    bin()
-        .arg("batch")
-        .arg(data.path())
-        .arg("--out")
-        .arg(reference.path())
-        .arg("--quiet")
-        .assert()
-        .success();
+    quiet_batch(data.path(), reference.path(), &[]);
     let expected = records(reference.path());
     assert_eq!(expected.len(), 40);
     let mut interrupted = 0;
@@ -82,14 +75,7 @@ fn a_batch_killed_at_any_point_resumes_to_identical_records() {
                 );
             }
         }
-        bin()
-            .arg("batch")
-            .arg(data.path())
-            .arg("--out")
-            .arg(out.path())
-            .arg("--quiet")
-            .assert()
-            .success();
+        quiet_batch(data.path(), out.path(), &[]);
         let resumed = records(out.path());
         assert_eq!(resumed, expected, "after kill at {delay_ms} ms");
         let summary = std::fs::read(out.path().join("summary.csv")).unwrap();
@@ -178,19 +164,7 @@ fn a_changed_rig_setting_recomputes_the_trials_it_affects() {
 #[test]
 fn groups_csv_matches_statistics_computed_from_summary_csv() {
     let out = tempfile::tempdir().unwrap();
-    bin()
-        .current_dir(common::repo())
-        .args([
-            "batch",
-            "sample-audio/manifest.csv",
-            "--quiet",
-            "--rig",
-            "calibration/demo-rig.json",
-            "--out",
-        ])
-        .arg(out.path())
-        .assert()
-        .success();
+    common::sample_batch("sample-audio/manifest.csv", out.path(), &[]);
     let groups = std::fs::read_to_string(out.path().join("groups.csv")).unwrap();
     let mut lines = groups.lines();
     let header: Vec<&str> = lines.next().unwrap().split(',').collect();

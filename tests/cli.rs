@@ -16,13 +16,7 @@ const SAMPLE_TOLERANCE: Tolerance = Tolerance {
 };
 
 fn run_sample_batch(out: &Path) {
-    bin()
-        .args(["batch", "sample-audio/manifest.csv", "--out"])
-        .arg(out)
-        .args(["--rig", "calibration/demo-rig.json", "--quiet"])
-        .current_dir(repo())
-        .assert()
-        .success();
+    common::sample_batch("sample-audio/manifest.csv", out, &[]);
 }
 
 #[test]
@@ -194,19 +188,7 @@ fn strict_mode_exits_4_when_a_trial_failed() {
 #[test]
 fn folder_discovery_pairs_audio_with_frames_and_keeps_lone_streams() {
     let out = tempfile::tempdir().unwrap();
-    bin()
-        .current_dir(repo())
-        .args([
-            "batch",
-            "sample-audio",
-            "--quiet",
-            "--rig",
-            "calibration/demo-rig.json",
-            "--out",
-        ])
-        .arg(out.path())
-        .assert()
-        .success();
+    common::sample_batch("sample-audio", out.path(), &[]);
     let video_only = read_json(&out.path().join("trials/ls2-thin-05.json"));
     assert!(video_only["audio_file"].is_null() && video_only["latch_release_s"].is_number());
     let audio_only = read_json(&out.path().join("trials/ls2-thick-04.json"));

@@ -24,20 +24,7 @@ fn parse_xml(text: &str) -> Result<usize, String> {
 #[test]
 fn report_over_the_sample_data_links_a_figure_for_every_trial() {
     let out = tempfile::tempdir().unwrap();
-    bin()
-        .current_dir(repo())
-        .args([
-            "batch",
-            "sample-audio/manifest.csv",
-            "--quiet",
-            "--report",
-            "--rig",
-            "calibration/demo-rig.json",
-            "--out",
-        ])
-        .arg(out.path())
-        .assert()
-        .success();
+    common::sample_batch("sample-audio/manifest.csv", out.path(), &["--report"]);
     let html = std::fs::read_to_string(out.path().join("report.html")).unwrap();
     let elements = parse_xml(&html).unwrap_or_else(|e| panic!("report.html does not parse: {e}"));
     assert!(elements > 100);

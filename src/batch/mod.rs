@@ -304,11 +304,7 @@ pub fn write_report(out_dir: &Path, rig: &RigProfile) -> Result<ReportOutcome> {
     let mut by_group: std::collections::BTreeMap<String, [Vec<f64>; 3]> = Default::default();
     let mut residuals = Vec::new();
     let mut tolerances = Vec::new();
-    let options = crate::decode::FrameOptions {
-        motion_column: rig.frames_column.clone(),
-        loading_column: rig.loading_column.clone(),
-        fps: rig.fps,
-    };
+    let options = crate::decode::FrameOptions::from(rig);
     for path in record_paths(out_dir)? {
         let Some(record) = std::fs::read_to_string(&path)
             .ok()

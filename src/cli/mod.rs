@@ -275,12 +275,14 @@ fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
     ExitCode::from(code)
 }
 
+/// The rig profile at `path`, or the defaults without one.
+fn load_rig(path: Option<&Path>) -> Result<RigProfile, Error> {
+    path.map_or_else(|| Ok(RigProfile::default()), RigProfile::from_path)
+}
+
 impl RigArgs {
     fn profile(&self) -> Result<RigProfile, Error> {
-        let mut rig = match &self.rig {
-            Some(path) => RigProfile::from_path(path)?,
-            None => RigProfile::default(),
-        };
+        let mut rig = load_rig(self.rig.as_deref())?;
         if self.fps.is_some() {
             rig.fps = self.fps;
         }
@@ -450,12 +452,9 @@ fn run_summarize(dir: &Path) -> ExitCode {
 }
 
 fn run_synth(args: SynthArgs) -> ExitCode {
-    let rig = match &args.rig {
-        Some(p) => match RigProfile::from_path(p) {
-            Ok(r) => r,
-            Err(e) => return fail(EXIT_USAGE, e),
-        },
-        None => RigProfile::default(),
+    let rig = match load_rig(args.rig.as_deref()) {
+        Ok(r) => r,
+        Err(e) => return fail(EXIT_USAGE, e),
     };
     if let Err(e) = std::fs::create_dir_all(&args.out) {
         return fail(EXIT_OUTPUT, format!("{}: {e}", args.out.display()));
@@ -513,12 +512,9 @@ fn run_synth(args: SynthArgs) -> ExitCode {
 }
 
 fn run_validate(args: ValidateArgs) -> ExitCode {
-    let rig = match &args.rig {
-        Some(p) => match RigProfile::from_path(p) {
-            Ok(r) => r,
-            Err(e) => return fail(EXIT_USAGE, e),
-        },
-        None => RigProfile::default(),
+    let rig = match load_rig(args.rig.as_deref()) {
+        Ok(r) => r,
+        Err(e) => return fail(EXIT_USAGE, e),
     };
     let mut config = validate::ValidateConfig {
         count: args.count,

@@ -165,14 +165,24 @@ fn decode_with_hound(
             ),
         )));
     }
-    Ok(AudioSignal {
+    Ok(hound_signal(spec, samples, channel, clip_level))
+}
+
+/// The analysed channel of a WAV whose header hound read.
+fn hound_signal(
+    spec: hound::WavSpec,
+    samples: Vec<f64>,
+    channel: usize,
+    clip_level: f64,
+) -> AudioSignal {
+    AudioSignal {
         samples,
         sample_rate_hz: f64::from(spec.sample_rate),
-        channels,
+        channels: usize::from(spec.channels),
         channel,
         clip_level,
         bits_per_sample: Some(u32::from(spec.bits_per_sample)),
-    })
+    }
 }
 
 /// Fast path for tightly packed little-endian PCM (16/24/32-bit integer, 32-bit float): hound
@@ -246,14 +256,7 @@ fn packed_samples(
             1.0,
         ),
     };
-    Ok(Some(AudioSignal {
-        samples,
-        sample_rate_hz: f64::from(spec.sample_rate),
-        channels,
-        channel,
-        clip_level,
-        bits_per_sample: Some(u32::from(spec.bits_per_sample)),
-    }))
+    Ok(Some(hound_signal(spec, samples, channel, clip_level)))
 }
 
 fn symphonia_error(path: &Path, e: SymphoniaError) -> Error {

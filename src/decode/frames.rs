@@ -22,6 +22,16 @@ pub struct FrameOptions {
     pub fps: Option<f64>,
 }
 
+impl From<&crate::rig::RigProfile> for FrameOptions {
+    fn from(rig: &crate::rig::RigProfile) -> Self {
+        FrameOptions {
+            motion_column: rig.frames_column.clone(),
+            loading_column: rig.loading_column.clone(),
+            fps: rig.fps,
+        }
+    }
+}
+
 fn parse_number(path: &Path, line: u64, column: &str, text: &str) -> Result<f64> {
     let v: f64 = text.parse().map_err(|_| {
         Error::malformed(

@@ -13,6 +13,38 @@ pub fn repo() -> PathBuf {
     PathBuf::from(env!("CARGO_MANIFEST_DIR"))
 }
 
+/// Runs `batch INPUT --out OUT --quiet --rig calibration/demo-rig.json EXTRA..` from the
+/// repository root and asserts it succeeded.
+pub fn sample_batch(input: &str, out: &Path, extra: &[&str]) {
+    bin()
+        .current_dir(repo())
+        .args([
+            "batch",
+            input,
+            "--quiet",
+            "--rig",
+            "calibration/demo-rig.json",
+        ])
+        .args(extra)
+        .arg("--out")
+        .arg(out)
+        .assert()
+        .success();
+}
+
+/// Runs `batch INPUT --out OUT --quiet EXTRA..` and asserts it succeeded.
+pub fn quiet_batch(input: &Path, out: &Path, extra: &[&str]) {
+    bin()
+        .arg("batch")
+        .arg(input)
+        .arg("--out")
+        .arg(out)
+        .arg("--quiet")
+        .args(extra)
+        .assert()
+        .success();
+}
+
 pub fn read_json(path: &Path) -> Value {
     let text = std::fs::read_to_string(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
     serde_json::from_str(&text).unwrap_or_else(|e| panic!("{}: {e}", path.display()))
