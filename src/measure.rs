@@ -67,6 +67,9 @@ pub struct ClickMeasures {
     pub rise_ms: f64,
     pub centroid_hz: f64,
     pub snr_db: f64,
+    /// Found only by a search at a lowered trigger level (the stretch the video release maps
+    /// to), not by the whole-recording search.
+    pub guided: bool,
 }
 
 /// Clock cross-check between audio and video.
@@ -233,6 +236,7 @@ pub fn measure(
                     rise_ms: main.rise_ms,
                     centroid_hz: main.centroid_hz,
                     snr_db: main.snr_db,
+                    guided: main.guided,
                 });
             }
         }

@@ -86,13 +86,16 @@ fn try_analyze(
     if audio.is_none() && frames.is_none() {
         return Err(Error::Usage(format!("trial {}: no inputs", spec.name)));
     }
+    let video_events = frames.as_ref().map(|f| detect::detect_video(f, rig));
+    let expected = video_events
+        .as_ref()
+        .and_then(|v| detect::expected_click(v, rig));
     let audio_events = audio.as_ref().map(|a| {
         (
-            detect::detect_audio(a, rig, &mut scratch.click),
+            detect::detect_audio(a, rig, &mut scratch.click, expected),
             a.sample_rate_hz,
         )
     });
-    let video_events = frames.as_ref().map(|f| detect::detect_video(f, rig));
     let mut record = TrialRecord::empty(&spec.name, spec.group.as_deref());
     measure::measure(
         &mut record,

@@ -63,9 +63,15 @@ pub struct RigProfile {
     pub efficiency_model: EfficiencyModel,
     /// Audio high-pass corner before click detection, Hz (zero-phase 4th-order Butterworth).
     pub highpass_hz: f64,
-    /// Click trigger level: standard score of the 0.25 ms short-term energy of the filtered
-    /// audio against the noise floor.
-    pub click_threshold_sigma: f64,
+    /// Chance that noise alone raises a false click in one search (the whole recording; the
+    /// stretch the video's latch release maps to; the stretch around the strongest click).
+    /// The click trigger level of each search follows from it and the length searched.
+    pub click_false_alarm: f64,
+    /// Length of the click detector's short-term energy window, ms.
+    pub click_window_ms: f64,
+    /// A second click is sought at the guided threshold this far either side of the strongest
+    /// click, ms; beyond it only the whole-recording threshold applies.
+    pub double_click_window_ms: f64,
     /// A transient whose spectral centroid is below this is a thump, not a click, Hz.
     pub min_click_centroid_hz: f64,
     /// Upper edge of the click detection band, Hz (onsets are still picked full-band).
@@ -100,7 +106,9 @@ impl Default for RigProfile {
             low_snr_db: 20.0,
             efficiency_model: EfficiencyModel::Energy,
             highpass_hz: 1000.0,
-            click_threshold_sigma: 5.0,
+            click_false_alarm: 0.01,
+            click_window_ms: 0.5,
+            double_click_window_ms: 30.0,
             min_click_centroid_hz: 2000.0,
             click_detection_top_hz: 20_000.0,
             click_merge_ms: 1.0,
@@ -193,7 +201,27 @@ impl RigProfile {
         }
         finite("low_snr_db", self.low_snr_db)?;
         positive("highpass_hz", self.highpass_hz)?;
-        positive("click_threshold_sigma", self.click_threshold_sigma)?;
+        positive("click_false_alarm", self.click_false_alarm)?;
+        if self.click_false_alarm > 0.5 {
+            return Err(Error::config(
+                "click_false_alarm",
+                "must be at most 0.5 (a chance per search)",
+            ));
+        }
+        positive("click_window_ms", self.click_window_ms)?;
+        if self.click_window_ms > 50.0 {
+            return Err(Error::config(
+                "click_window_ms",
+                "must be at most 50 ms (a click, not a recording)",
+            ));
+        }
+        finite("double_click_window_ms", self.double_click_window_ms)?;
+        if self.double_click_window_ms < 0.0 || self.double_click_window_ms > 10_000.0 {
+            return Err(Error::config(
+                "double_click_window_ms",
+                "must be between 0 and 10000 ms",
+            ));
+        }
         finite("min_click_centroid_hz", self.min_click_centroid_hz)?;
         positive("click_merge_ms", self.click_merge_ms)?;
         positive("click_detection_top_hz", self.click_detection_top_hz)?;

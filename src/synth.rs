@@ -157,6 +157,9 @@ pub struct Truth {
     pub video_fps: Option<f64>,
     /// Click peak over noise RMS as synthesised, dB.
     pub click_snr_db: Option<f64>,
+    /// The second click's peak over noise RMS (double-click kind), dB.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub second_click_snr_db: Option<f64>,
     /// How far the click was moved off the clock relation (out-of-sync kind), ms.
     pub sync_slip_ms: Option<f64>,
     /// The release overshoots into an oscillation (false: overdamped).
@@ -302,6 +305,7 @@ pub fn generate(
     };
     let click_s = rig.audio_time_s(release_s) + slip_s;
     let mut clicks = Vec::new();
+    let mut second_click_snr_db = None;
     if fires {
         let amp = click_amp;
         add_click(&mut audio, fs, click_s, amp, &mut rng);
@@ -317,6 +321,7 @@ pub fn generate(
                 &mut rng,
             );
             clicks.push(second_s);
+            second_click_snr_db = Some(click_snr_db + level_db);
         }
     }
     // Handling thumps, kept 40 ms clear of clicks so the truth stays unambiguous.
@@ -401,6 +406,7 @@ pub fn generate(
         audio_sample_rate_hz: has_audio.then_some(fs),
         video_fps: has_frames.then_some(fps),
         click_snr_db: (has_audio && fires).then_some(click_snr_db),
+        second_click_snr_db: second_click_snr_db.filter(|_| has_audio),
         sync_slip_ms: (kind == TrialKind::OutOfSync).then_some(slip_s * 1e3),
         overshoot: (has_frames && fires).then_some(overshoot),
     };

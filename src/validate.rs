@@ -78,23 +78,25 @@ pub fn measure_like(folder: &Path, rig: &RigProfile) -> Result<MeasuredRig> {
             continue;
         };
         read += 1;
-        if let (Some(path), Some(bytes)) = (&t.spec.audio, &inputs.audio) {
-            if let Ok(a) = decode::decode_audio(path, bytes, rig.audio_channel) {
-                rates.push(a.sample_rate_hz);
-                let ev = detect::detect_audio(&a, rig, &mut scratch.click);
-                if let Some(m) = ev.main() {
-                    snr.push(m.snr_db);
-                }
-            }
-        }
+        let mut expected = None;
         if let (Some(path), Some(bytes)) = (&t.spec.frames, &inputs.frames) {
             if let Ok(f) = decode::decode_frames(path, bytes, &rig.into()) {
                 let v = detect::detect_video(&f, rig);
+                expected = detect::expected_click(&v, rig);
                 fps.push(1.0 / v.clock.period_s);
                 if let Some(m) = &v.motion {
                     if m.jump != 0.0 {
                         noise.push(v.noise_sigma / m.jump.abs());
                     }
+                }
+            }
+        }
+        if let (Some(path), Some(bytes)) = (&t.spec.audio, &inputs.audio) {
+            if let Ok(a) = decode::decode_audio(path, bytes, rig.audio_channel) {
+                rates.push(a.sample_rate_hz);
+                let ev = detect::detect_audio(&a, rig, &mut scratch.click, expected);
+                if let Some(m) = ev.main() {
+                    snr.push(m.snr_db);
                 }
             }
         }
@@ -182,14 +184,40 @@ pub struct ValidationReport {
     pub errors: usize,
     pub events: Vec<EventAccuracy>,
     pub flags: Vec<FlagAccuracy>,
+    /// The trials where a scored flag or the click went wrong, to look at one by one
+    /// (`latchtime synth --seed` does not reproduce them; the seed here is per trial).
+    pub disagreements: Vec<Disagreement>,
 }
 
-const BANDS: [(&str, f64, f64); 4] = [
+/// One synthetic trial whose flags or click disagree with its truth.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Disagreement {
+    pub trial: String,
+    pub kind: TrialKind,
+    /// SNR of the (first) click as synthesised, dB.
+    pub click_snr_db: Option<f64>,
+    /// Scored flags the truth has and the record lacks.
+    pub missed_flags: Vec<Flag>,
+    /// Scored flags the record has and the truth lacks.
+    pub extra_flags: Vec<Flag>,
+    /// True click onsets, audio clock, seconds.
+    pub true_clicks_s: Vec<f64>,
+    /// Detected click onsets, audio clock, seconds.
+    pub found_clicks_s: Vec<f64>,
+}
+
+const BANDS: [(&str, f64, f64); 5] = [
     ("all", f64::NEG_INFINITY, f64::INFINITY),
-    ("10-20 dB", 10.0, 20.0),
+    ("10-13 dB", 10.0, 13.0),
+    ("13-20 dB", 13.0, 20.0),
     ("20-30 dB", 20.0, 30.0),
     (">= 30 dB", 30.0, f64::INFINITY),
 ];
+
+/// SNR floor of the targets, dB: second clicks below it are scored apart.
+const AUDIBLE_DB: f64 = 10.0;
+/// Name of the double_click row that leaves out second clicks below `AUDIBLE_DB`.
+pub const DOUBLE_AUDIBLE_ROW: &str = "double_click, second >= 10 dB";
 
 /// Flags whose detection is scored.
 const SCORED_FLAGS: [Flag; 7] = [
@@ -236,6 +264,8 @@ pub fn validate(rig: &RigProfile, config: &ValidateConfig) -> ValidationReport {
     ];
     let mut flag_counts = vec![(0usize, 0usize, 0usize, 0usize); SCORED_FLAGS.len()];
     let mut errors = 0;
+    let mut disagreements = Vec::new();
+    let mut audible_double = (0usize, 0usize, 0usize, 0usize);
     let period = 1.0 / config.fps;
     for i in 0..config.count {
         let kind = pick_kind(&mut rng);
@@ -275,17 +305,43 @@ pub fn validate(rig: &RigProfile, config: &ValidateConfig) -> ValidationReport {
         if record.error.is_some() {
             errors += 1;
         }
-        score_trial(&record, &trial.truth, period, &mut events);
+        let click_missed = score_trial(&record, &trial.truth, period, &mut events);
+        let (mut missed_flags, mut extra_flags) = (Vec::new(), Vec::new());
         for (k, flag) in SCORED_FLAGS.iter().enumerate() {
             let want = trial.truth.flags.contains(flag);
             let got = record.flags.contains(flag);
-            let c = &mut flag_counts[k];
-            match (want, got) {
-                (true, true) => c.0 += 1,
-                (false, true) => c.1 += 1,
-                (true, false) => c.2 += 1,
-                (false, false) => c.3 += 1,
+            tally(&mut flag_counts[k], want, got);
+            if want && !got {
+                missed_flags.push(*flag);
+            } else if got && !want {
+                extra_flags.push(*flag);
             }
+        }
+        // double_click again, leaving out second clicks below the SNR floor the targets
+        // assume (10 dB); false positives count as before.
+        let want = trial.truth.flags.contains(&Flag::DoubleClick);
+        if !want
+            || trial
+                .truth
+                .second_click_snr_db
+                .is_some_and(|s| s >= AUDIBLE_DB)
+        {
+            tally(
+                &mut audible_double,
+                want,
+                record.flags.contains(&Flag::DoubleClick),
+            );
+        }
+        if click_missed || !missed_flags.is_empty() || !extra_flags.is_empty() {
+            disagreements.push(Disagreement {
+                trial: name,
+                kind,
+                click_snr_db: trial.truth.click_snr_db,
+                missed_flags,
+                extra_flags,
+                true_clicks_s: trial.truth.clicks_s.clone().unwrap_or_default(),
+                found_clicks_s: record.clicks_s.clone().unwrap_or_default(),
+            });
         }
     }
     let mut rows = Vec::new();
@@ -314,11 +370,16 @@ pub fn validate(rig: &RigProfile, config: &ValidateConfig) -> ValidationReport {
             });
         }
     }
-    let flags = SCORED_FLAGS
+    let mut named: Vec<(String, (usize, usize, usize, usize))> = SCORED_FLAGS
         .iter()
+        .map(|f| f.as_str().to_string())
         .zip(flag_counts)
+        .collect();
+    named.insert(1, (DOUBLE_AUDIBLE_ROW.to_string(), audible_double));
+    let flags = named
+        .into_iter()
         .map(|(flag, (tp, fp, fn_, tn))| FlagAccuracy {
-            flag: flag.as_str().to_string(),
+            flag,
             true_positives: tp,
             false_positives: fp,
             false_negatives: fn_,
@@ -333,15 +394,28 @@ pub fn validate(rig: &RigProfile, config: &ValidateConfig) -> ValidationReport {
         errors,
         events: rows,
         flags,
+        disagreements,
     }
 }
 
+/// Counts one flag decision into (true positives, false positives, false negatives, true
+/// negatives).
+fn tally(c: &mut (usize, usize, usize, usize), want: bool, got: bool) {
+    match (want, got) {
+        (true, true) => c.0 += 1,
+        (false, true) => c.1 += 1,
+        (true, false) => c.2 += 1,
+        (false, false) => c.3 += 1,
+    }
+}
+
+/// Scores one trial into `events`; true when its click was missed.
 fn score_trial(
     record: &TrialRecord,
     truth: &synth::Truth,
     period_s: f64,
     events: &mut [(&'static str, &'static str, Vec<Sample>)],
-) {
+) -> bool {
     let snr = truth.click_snr_db.unwrap_or(f64::INFINITY);
     let mut push = |slot: usize, value: Option<f64>, covered: Option<bool>| {
         events[slot].2.push(Sample {
@@ -353,9 +427,12 @@ fn score_trial(
     let abs_within = |r: Option<f64>, t: f64, scale: f64, limit: f64| {
         r.map(|r| (r - t).abs() * scale).filter(|e| *e <= limit)
     };
+    let mut click_missed = false;
     if let Some(t) = truth.click_onset_s {
         // A pick more than 1 ms away found something else: a miss.
-        push(0, abs_within(record.click_onset_s, t, 1e6, 1000.0), None);
+        let error_us = abs_within(record.click_onset_s, t, 1e6, 1000.0);
+        click_missed = error_us.is_none();
+        push(0, error_us, None);
     }
     let refined = record.sync.is_some() && !record.flags.contains(&Flag::SyncMismatch);
     if let Some(t) = truth.latch_release_s {
@@ -403,4 +480,5 @@ fn score_trial(
             .map(|r| (r.amplitude_ratio - o.amplitude_ratio).abs());
         push(8, got, None);
     }
+    click_missed
 }

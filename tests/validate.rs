@@ -34,21 +34,38 @@ fn flag<'a>(r: &'a ValidationReport, name: &str) -> &'a latchtime::validate::Fla
     r.flags.iter().find(|f| f.flag == name).unwrap()
 }
 
-fn check(r: &ValidationReport, video_release_median_frames: f64) {
+/// Per-rig guard levels where a target is not met there yet (see each assertion).
+struct Guards {
+    video_release_median_frames: f64,
+    click_miss_share: f64,
+    no_click_precision: f64,
+}
+
+/// The targets themselves.
+const TARGETS: Guards = Guards {
+    video_release_median_frames: 0.3,
+    click_miss_share: 0.01,
+    no_click_precision: 0.97,
+};
+
+fn check(r: &ValidationReport, g: Guards) {
     let at = format!("{} Hz / {} fps", r.config.sample_rate_hz, r.config.fps);
     assert_eq!(r.errors, 0, "{at}");
     // Target: click onset median <= 20 us, p95 <= 100 us at SNR >= 10 dB.
     let click = event(r, "click_onset_s", "all");
     assert!(click.median_abs_error.unwrap() <= 20.0, "{at}: {click:?}");
     assert!(click.p95_abs_error.unwrap() <= 100.0, "{at}: {click:?}");
-    // Target: misses <= 1 %. Not met at 10-13 dB peak SNR for 48 and 96 kHz (about 5 %
-    // measured, all in the 10-20 dB band); guarded at 6 %.
+    // Target: misses <= 1 %. Met at 250 kHz; at 48 and 96 kHz 5 of 265 clicks are missed
+    // (1.9 %), all at 10-12 dB where a 0.5 ms window holds too little click energy to stand
+    // out from noise; guarded there at 2.5 %. Nothing at 13 dB or more may be missed.
     assert!(
-        (click.misses as f64) <= 0.06 * click.n as f64,
+        (click.misses as f64) <= g.click_miss_share * click.n as f64,
         "{at}: {click:?}"
     );
-    let strong = event(r, "click_onset_s", ">= 30 dB");
-    assert_eq!(strong.misses, 0, "{at}: {strong:?}");
+    for band in ["13-20 dB", "20-30 dB", ">= 30 dB"] {
+        let e = event(r, "click_onset_s", band);
+        assert_eq!(e.misses, 0, "{at}: {e:?}");
+    }
     // Target: audio-refined release median <= 0.05 ms.
     let refined = event(r, "latch_release_s (audio-refined)", "all");
     assert!(
@@ -59,7 +76,7 @@ fn check(r: &ValidationReport, video_release_median_frames: f64) {
     // at 4000 fps, guarded there at 0.6).
     let video = event(r, "latch_release_video_s", "all");
     assert!(
-        video.median_abs_error.unwrap() <= video_release_median_frames,
+        video.median_abs_error.unwrap() <= g.video_release_median_frames,
         "{at}: {video:?}"
     );
     // Target: motion peak median <= 0.3 frame.
@@ -107,32 +124,58 @@ fn check(r: &ValidationReport, video_release_median_frames: f64) {
         sync.recall.unwrap() >= 0.9 && sync.false_alarm_rate.unwrap() <= 0.021,
         "{at}: {sync:?}"
     );
-    // Target: double_click and no_click precision and recall >= 0.97. Not met: weak clicks
-    // (10-13 dB) go unseen, which misses second clicks and makes no_click false positives.
-    // Guarded at today's levels less a margin.
+    // Target: double_click and no_click precision and recall >= 0.97.
+    // double_click counts every second click, and those the synthesiser makes 3-8 dB weaker
+    // than a first click near the 10 dB floor cannot be heard (recall 0.73-0.98 measured);
+    // leaving out second clicks below 10 dB, the target holds within one trial (0.967-1.0).
     let double = flag(r, "double_click");
+    assert!(double.precision.unwrap() >= 0.95, "{at}: {double:?}");
+    let audible = flag(r, latchtime::validate::DOUBLE_AUDIBLE_ROW);
     assert!(
-        double.precision.unwrap() >= 0.85 && double.recall.unwrap() >= 0.65,
-        "{at}: {double:?}"
+        audible.precision.unwrap() >= 0.95 && audible.recall.unwrap() >= 0.95,
+        "{at}: {audible:?}"
     );
+    // no_click: every missed click is a false no_click, so its precision follows the misses
+    // (0.87 measured at 48 and 96 kHz, guarded at 0.85; 1.0 at 250 kHz). Recall 0.97-1.0: one
+    // empty trial in 35 at 96 kHz takes a false click from noise at the 1 % false-alarm chance.
     let none = flag(r, "no_click");
     assert!(
-        none.precision.unwrap() >= 0.65 && none.recall.unwrap() >= 0.95,
+        none.precision.unwrap() >= g.no_click_precision && none.recall.unwrap() >= 0.95,
         "{at}: {none:?}"
     );
 }
 
 #[test]
 fn validation_at_48_khz_and_500_fps_meets_the_guarded_targets() {
-    check(&run(48_000, 500.0), 0.3);
+    check(
+        &run(48_000, 500.0),
+        Guards {
+            click_miss_share: 0.025,
+            no_click_precision: 0.85,
+            ..TARGETS
+        },
+    );
 }
 
 #[test]
 fn validation_at_96_khz_and_1000_fps_meets_the_guarded_targets() {
-    check(&run(96_000, 1000.0), 0.3);
+    check(
+        &run(96_000, 1000.0),
+        Guards {
+            click_miss_share: 0.025,
+            no_click_precision: 0.85,
+            ..TARGETS
+        },
+    );
 }
 
 #[test]
 fn validation_at_250_khz_and_4000_fps_meets_the_guarded_targets() {
-    check(&run(250_000, 4000.0), 0.6);
+    check(
+        &run(250_000, 4000.0),
+        Guards {
+            video_release_median_frames: 0.6,
+            ..TARGETS
+        },
+    );
 }

@@ -4,6 +4,9 @@ use std::fmt::Write;
 
 use crate::validate::ValidationReport;
 
+/// Disagreeing trials listed in the text table.
+const SHOWN: usize = 20;
+
 fn num(v: Option<f64>, decimals: usize) -> String {
     v.map_or_else(|| "-".to_string(), |v| format!("{v:.decimals$}"))
 }
@@ -40,13 +43,13 @@ pub fn render(r: &ValidationReport) -> String {
     let _ = writeln!(s);
     let _ = writeln!(
         s,
-        "{:<14} {:>5} {:>5} {:>5} {:>10} {:>8} {:>12}",
+        "{:<30} {:>5} {:>5} {:>5} {:>10} {:>8} {:>12}",
         "flag", "TP", "FP", "FN", "precision", "recall", "false alarm"
     );
     for f in &r.flags {
         let _ = writeln!(
             s,
-            "{:<14} {:>5} {:>5} {:>5} {:>10} {:>8} {:>12}",
+            "{:<30} {:>5} {:>5} {:>5} {:>10} {:>8} {:>12}",
             f.flag,
             f.true_positives,
             f.false_positives,
@@ -55,6 +58,36 @@ pub fn render(r: &ValidationReport) -> String {
             num(f.recall, 3),
             num(f.false_alarm_rate, 3)
         );
+    }
+    if !r.disagreements.is_empty() {
+        let _ = writeln!(s);
+        let _ = writeln!(
+            s,
+            "{} trials disagree with their truth (all are in --format json); the first {}:",
+            r.disagreements.len(),
+            r.disagreements.len().min(SHOWN)
+        );
+        let list = |v: &[f64]| {
+            v.iter()
+                .map(|t| format!("{t:.5}"))
+                .collect::<Vec<_>>()
+                .join(" ")
+        };
+        for d in r.disagreements.iter().take(SHOWN) {
+            let flags =
+                |v: &[crate::Flag]| v.iter().map(|f| f.as_str()).collect::<Vec<_>>().join(",");
+            let _ = writeln!(
+                s,
+                "  {} {:<13} snr {:>5} dB  missed [{}] extra [{}]  clicks true [{}] found [{}]",
+                d.trial,
+                d.kind.as_str(),
+                num(d.click_snr_db, 1),
+                flags(&d.missed_flags),
+                flags(&d.extra_flags),
+                list(&d.true_clicks_s),
+                list(&d.found_clicks_s)
+            );
+        }
     }
     s
 }
