@@ -273,17 +273,23 @@ pub fn detect_audio(
     expected: Option<click::SearchHint>,
 ) -> AudioEvents {
     let config = click::ClickConfig::from(rig);
-    let mut hints: Vec<click::SearchHint> = expected.into_iter().collect();
+    let hints: Vec<click::SearchHint> = expected.into_iter().collect();
     let mut scan = click::scan_transients(signal, &config, scratch, &hints);
     let around_s = rig.double_click_window_ms * 1e-3;
     if let Some(main) = strongest_click(&scan.transients).map(|i| &scan.transients[i]) {
         if around_s > 0.0 {
-            hints.push(click::SearchHint {
+            // The second search replaces the expected stretch: a false click there would be
+            // taken for a second click. Only a main click that needed the lowered level keeps
+            // it, to be found again.
+            let mut second = vec![click::SearchHint {
                 start_s: main.onset_s - around_s,
                 end_s: main.onset_s + around_s,
                 false_alarm: rig.click_false_alarm * DOUBLE_CLICK_FALSE_ALARM_SHARE,
-            });
-            scan = click::scan_transients(signal, &config, scratch, &hints);
+            }];
+            if main.guided {
+                second.extend(hints);
+            }
+            scan = click::scan_transients(signal, &config, scratch, &second);
         }
     }
     let main_click = strongest_click(&scan.transients);

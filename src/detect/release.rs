@@ -1,26 +1,27 @@
 //! Latch release and motion peak on the video clock.
 //!
 //! The motion rate is the finite difference of the motion measure over a window of w frames,
-//! w the smallest of 1, 2, 4, ... 64 frames over which the largest change stands at least
-//! eight noise standard deviations clear (one frame at ordinary frame rates; more at tens of
-//! thousands of frames per second, where one frame moves little). The fast phase is the run
-//! around the largest rate; a trial has a release only when that phase moves the measure by
-//! `min_jump_sigma` per-frame noise standard deviations or more, and lasts no longer than
-//! `max_release_ms` (a slow relaxation of a failed trigger is not a release).
+//! w the smallest of 1, 2, 4, ... 64 frames over which the largest change stands eight noise
+//! standard deviations clear of the largest change noise alone reaches over the series (one
+//! frame at ordinary frame rates; more at tens of thousands of frames per second, where one
+//! frame moves little). The fast phase is the run around the largest rate; a trial has a
+//! release only when that phase moves the measure by `min_jump_sigma` per-frame noise standard
+//! deviations or more, and lasts no longer than `max_release_ms` (a slow relaxation of a
+//! failed trigger is not a release).
 //!
 //! Definitions (see README):
-//! - latch release: the start of the fast phase, where the accelerating motion begins. With
-//!   three or more frames on the rising edge (rate below 70 % of its peak), a straight line (the
-//!   slow drift before) joined by a parabola (constant initial acceleration, as a spring let go
-//!   from rest) is fitted by least squares and its joint is the release. With fewer frames (low
-//!   frame rates), the time at which the rate crosses `rate_fraction` (default 10 %) of its
-//!   peak: from a straight line through the rate samples between 20 % and 80 % of the peak
-//!   when there are three or more, else interpolated between the two rate samples either side.
-//!   A latch that lets go progressively creeps before it snaps; this definition times the snap.
+//! - latch release: the start of the fast phase, where the accelerating motion begins. A
+//!   straight line (the slow drift before) joined by the displacement of a spring-mass system
+//!   let go from rest (damping ratio 0, 0.2, 0.4 or 0.6, whichever fits best; 1 - cos when
+//!   undamped) is fitted by least squares, and its joint is the release. The shape's time
+//!   scale comes from the time of the peak rate. The fit runs to the peak rate when three or
+//!   more frames lie on the rising edge, else to the motion peak. Without a fit, the time at
+//!   which the rate crosses `rate_fraction` (default 10 %) of its peak. A latch that lets go
+//!   progressively creeps before it snaps; this definition times the snap.
 //! - motion peak: the first extremum after the release in the direction of the motion, found
-//!   with a hysteresis of eight noise standard deviations (or 5 % of the jump) and refined by a parabola through the
-//!   three frames around it. With no overshoot (overdamped), the motion peak is where the rate
-//!   falls back through the same fraction of its peak.
+//!   with a hysteresis of eight noise standard deviations (or 5 % of the jump) and refined by
+//!   a parabola through the three frames around it. With no overshoot (overdamped), the motion
+//!   peak is where the rate falls back through the same fraction of its peak.
 
 use serde::{Deserialize, Serialize};
 
@@ -76,65 +77,171 @@ pub struct MotionEvents {
 /// Noise standard deviations the largest change over the rate window must reach.
 const MIN_WINDOW_SIGMA: f64 = 8.0;
 
-/// Start of an accelerating motion: least-squares fit, to the frames `..end`, of a straight
-/// line (the slow drift before) joined at tau by a parabola (constant initial acceleration, as
-/// of a spring let go from rest): y = a + b t + q max(0, t - tau)^2. tau runs over the frames
-/// of a window reaching `3 * edge` frames (at least 12) before `end` (short, so that the
-/// straight line stays local: a latch may creep before it snaps); the best is refined
-/// between frames by a parabola through the residual sums of squares. Returns tau and its
-/// standard uncertainty (the 95 % likelihood interval's half-width over 1.96).
-fn accelerating_onset(t: &[f64], y: &[f64], end: usize, edge: usize) -> Option<(f64, f64)> {
+/// Damping ratios tried for the release shape: undamped (1 - cos) to well damped.
+const RELEASE_ZETAS: [f64; 4] = [0.0, 0.2, 0.4, 0.6];
+
+/// Displacement, 0 at rest to its first extremum, of a spring-mass system let go from rest
+/// with damping ratio `zeta`, `h` seconds after release, scaled in time so that its speed
+/// peaks `h_mid` seconds after release: 1 - exp(-zeta w h) (cos(wd h) + zeta / sqrt(1 -
+/// zeta^2) sin(wd h)), held at its first extremum (wd h = pi). For zeta = 0, 1 - cos(wd h).
+fn release_shape(h: f64, h_mid: f64, zeta: f64) -> f64 {
+    if h <= 0.0 {
+        return 0.0;
+    }
+    let root = (1.0 - zeta * zeta).sqrt();
+    let wd = root.atan2(zeta) / h_mid;
+    let h = h.min(std::f64::consts::PI / wd);
+    let decay = (-zeta * wd / root * h).exp();
+    1.0 - decay * ((wd * h).cos() + zeta / root * (wd * h).sin())
+}
+
+/// Start of a spring's release from rest: least-squares fit, to the frames `start..end`, of a
+/// straight line (the slow drift before) joined at tau by the displacement of a spring-mass
+/// system let go from rest ([`release_shape`]), whose speed peaks at `t_mid_s` (the measured
+/// peak rate): y = a + b t + A shape(t - tau). Near tau the shape is the parabola of constant
+/// initial acceleration; unlike that parabola it keeps fitting as the spring's force falls
+/// off, so more frames can be used. The damping ratio of the shape is chosen from
+/// [`RELEASE_ZETAS`] by the least residual; tau runs over the frames of the window, and the
+/// best is refined between frames by golden-section search. Returns tau and its standard
+/// uncertainty (the 95 % likelihood interval's half-width over 1.96).
+fn spring_onset(
+    t: &[f64],
+    y: &[f64],
+    start: usize,
+    end: usize,
+    t_mid_s: f64,
+) -> Option<(f64, f64)> {
     let end = end.min(y.len());
-    let start = end.saturating_sub((3 * edge).max(12));
-    let (tw, yw) = (&t[start..end], &y[start..end]);
-    if tw.len() < 8 {
+    if end < start + 8 {
         return None;
     }
+    let (tw, yw) = (&t[start..end], &y[start..end]);
     let t0 = tw[0];
-    let sse_at = |tau: f64| -> Option<f64> {
+    let syy: f64 = yw.iter().map(|v| v * v).sum();
+    // Residual sum of squares of the linear fit for a given tau and shape: syy - c'v.
+    let sse_at = |tau: f64, zeta: f64| -> Option<f64> {
+        let h_mid = t_mid_s - tau;
+        if h_mid <= 0.0 {
+            return None;
+        }
         let mut m = [[0.0; 3]; 3];
         let mut v = [0.0; 3];
         for (&ti, &yi) in tw.iter().zip(yw) {
-            let u = ti - t0;
-            let h = (ti - tau).max(0.0);
-            let basis = [1.0, u, h * h];
+            let basis = [1.0, ti - t0, release_shape(ti - tau, h_mid, zeta)];
             for a in 0..3 {
                 v[a] += basis[a] * yi;
-                for b in 0..3 {
+                for b in a..3 {
                     m[a][b] += basis[a] * basis[b];
                 }
             }
         }
+        (m[1][0], m[2][0], m[2][1]) = (m[0][1], m[0][2], m[1][2]);
         let c = super::solve_linear(m, v)?;
-        Some(
-            tw.iter()
-                .zip(yw)
-                .map(|(&ti, &yi)| {
-                    let h = (ti - tau).max(0.0);
-                    let r = yi - c[0] - c[1] * (ti - t0) - c[2] * h * h;
-                    r * r
-                })
-                .sum(),
-        )
+        Some((syy - c[0] * v[0] - c[1] * v[1] - c[2] * v[2]).max(0.0))
     };
-    let candidates: Vec<(usize, f64)> = (2..tw.len() - 2)
-        .filter_map(|k| sse_at(tw[k]).map(|v| (k, v)))
-        .collect();
-    let &(k, best) = candidates.iter().min_by(|a, b| a.1.total_cmp(&b.1))?;
+    let grid = |zeta: f64| -> Vec<(usize, f64)> {
+        (2..tw.len() - 2)
+            .filter(|&k| tw[k] < t_mid_s)
+            .filter_map(|k| sse_at(tw[k], zeta).map(|v| (k, v)))
+            .collect()
+    };
+    // Each shape's tau is refined between frames by golden-section search (the residual sum
+    // of squares is far from a parabola there: the fit changes which frames lie on the curve);
+    // the shape with the least refined residual wins.
+    let refine = |zeta: f64, candidates: &[(usize, f64)]| -> Option<(usize, f64, f64)> {
+        let &(k, _) = candidates.iter().min_by(|a, b| a.1.total_cmp(&b.1))?;
+        let has = |k: usize| candidates.iter().any(|c| c.0 == k);
+        let lo = if has(k.wrapping_sub(1)) {
+            tw[k - 1]
+        } else {
+            tw[k]
+        };
+        let hi = if has(k + 1) { tw[k + 1] } else { tw[k] };
+        let sse = |tau: f64| sse_at(tau, zeta).unwrap_or(f64::INFINITY);
+        let tau = golden_min(lo, hi, sse);
+        Some((k, tau, sse(tau)))
+    };
+    let (candidates, (k, tau, _)) = RELEASE_ZETAS
+        .iter()
+        .filter_map(|&z| {
+            let g = grid(z);
+            let best = refine(z, &g)?;
+            Some((g, best))
+        })
+        .min_by(|a, b| a.1 .2.total_cmp(&b.1 .2))?;
+    let best = candidates.iter().map(|c| c.1).fold(f64::INFINITY, f64::min);
     let around = |k: usize| candidates.iter().find(|c| c.0 == k).map(|c| c.1);
-    let tau = match (around(k.wrapping_sub(1)), around(k + 1)) {
-        (Some(a), Some(c)) => {
-            match super::parabola_vertex((tw[k - 1], a), (tw[k], best), (tw[k + 1], c)) {
-                Some((tv, _)) if tv >= tw[k - 1] && tv <= tw[k + 1] => tv,
-                _ => tw[k],
-            }
-        }
-        _ => tw[k],
-    };
     let profile: Vec<Option<f64>> = (0..tw.len()).map(around).collect();
     let limit = best.max(1e-300) * (3.84 / tw.len() as f64).exp();
     let half_width = super::profile_half_width(tw, &profile, k, limit);
     Some((tau, half_width / 1.96))
+}
+
+/// Time of the peak rate: the vertex of a least-squares parabola through the contiguous rate
+/// samples at or above 70 % of the peak when there are five or more (many frames average the
+/// noise out at high frame rates), else of the parabola through the three samples around it.
+/// A spring let go from rest moves as 1 - cos, whose rate is symmetric about its peak.
+fn peak_rate_time(rate: &[f64], mid: &[f64], s: f64, i_max: usize) -> f64 {
+    let peak = s * rate[i_max];
+    let (mut a, mut b) = (i_max, i_max);
+    while a > 0 && s * rate[a - 1] >= 0.7 * peak {
+        a -= 1;
+    }
+    while b + 1 < rate.len() && s * rate[b + 1] >= 0.7 * peak {
+        b += 1;
+    }
+    if b - a + 1 >= 5 {
+        let t0 = mid[i_max];
+        let mut m = [[0.0; 3]; 3];
+        let mut v = [0.0; 3];
+        for i in a..=b {
+            let u = mid[i] - t0;
+            let basis = [1.0, u, u * u];
+            for p in 0..3 {
+                v[p] += basis[p] * s * rate[i];
+                for q in 0..3 {
+                    m[p][q] += basis[p] * basis[q];
+                }
+            }
+        }
+        if let Some(c) = super::solve_linear(m, v) {
+            let vertex = t0 - c[1] / (2.0 * c[2]);
+            if c[2] < 0.0 && vertex >= mid[a] && vertex <= mid[b] {
+                return vertex;
+            }
+        }
+    }
+    let signed: Vec<f64> = rate.iter().map(|r| s * r).collect();
+    super::refine_extremum(mid, &signed, i_max).0
+}
+
+/// Minimum of `f` on [lo, hi] by golden-section search (40 steps: the bracket shrinks by
+/// 0.618^40, about 4e-9 of its width).
+fn golden_min(lo: f64, hi: f64, f: impl Fn(f64) -> f64) -> f64 {
+    let g = (5f64.sqrt() - 1.0) / 2.0;
+    let (mut a, mut b) = (lo, hi);
+    if b <= a {
+        return a;
+    }
+    let mut c = b - g * (b - a);
+    let mut d = a + g * (b - a);
+    let (mut fc, mut fd) = (f(c), f(d));
+    for _ in 0..40 {
+        if fc <= fd {
+            b = d;
+            d = c;
+            fd = fc;
+            c = b - g * (b - a);
+            fc = f(c);
+        } else {
+            a = c;
+            c = d;
+            fc = fd;
+            d = a + g * (b - a);
+            fd = f(d);
+        }
+    }
+    0.5 * (a + b)
 }
 
 /// Time at which the rising edge of the rate crosses `level`, from a least-squares line through
@@ -175,14 +282,18 @@ pub fn detect_release(
     if n < 8 {
         return None;
     }
-    // Smallest window over which the largest change is clearly more than noise.
+    // Smallest window over which the largest change is clearly more than noise: eight noise
+    // standard deviations clear of the largest that noise alone reaches over the series
+    // (about sqrt(2 ln n) of them). Over tens of thousands of frames a noise spike in the rate
+    // can otherwise outgrow a release spread over hundreds of frames.
     let diff_sigma = (noise_sigma * std::f64::consts::SQRT_2).max(f64::MIN_POSITIVE);
+    let clear_sigma = MIN_WINDOW_SIGMA + (2.0 * (n as f64).ln()).sqrt();
     let w = (0..7)
         .map(|p| 1usize << p)
         .take_while(|w| *w <= n / 8)
         .find(|&w| {
             let biggest = (0..n - w).fold(0.0f64, |m, i| m.max((y[i + w] - y[i]).abs()));
-            biggest >= MIN_WINDOW_SIGMA * diff_sigma
+            biggest >= clear_sigma * diff_sigma
         })?;
     let rate: Vec<f64> = (0..n - w)
         .map(|i| (y[i + w] - y[i]) / (t[i + w] - t[i]).max(1e-12))
@@ -209,36 +320,7 @@ pub fn detect_release(
     while e > j && s * rate[e - 1] >= 0.7 * peak {
         e -= 1;
     }
-    let fitted = (e >= j + 3)
-        .then(|| accelerating_onset(t, y, e + w, e.saturating_sub(j)))
-        .flatten()
-        .filter(|(r, _)| {
-            *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[e]
-        });
     let quantisation_sd = period_s / 12f64.sqrt();
-    let (release_s, release_sd_s) = fitted
-        .map(|(r, sd)| (r, sd.max(0.05 * period_s)))
-        .or_else(|| {
-            edge_crossing(&rate[..=i_max], &mid[..=i_max], s, peak, level)
-                .filter(|r| {
-                    *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[i_max]
-                })
-                .map(|r| (r, quantisation_sd))
-        })
-        .unwrap_or_else(|| {
-            if j == 0 {
-                (mid[0], quantisation_sd)
-            } else {
-                let (r0, r1) = (s * rate[j - 1], s * rate[j]);
-                let f = ((level - r0) / (r1 - r0)).clamp(0.0, 1.0);
-                let dt = mid[j] - mid[j - 1];
-                // Rate noise moves the crossing by (rate noise) / (rate slope).
-                let rate_noise = noise_sigma * std::f64::consts::SQRT_2 / (w as f64 * period_s);
-                let slope = ((r1 - r0) / dt).abs().max(f64::MIN_POSITIVE);
-                let sd = quantisation_sd.hypot(rate_noise / slope).min(dt);
-                (mid[j - 1] + f * dt, sd)
-            }
-        });
     let pre_release_index = j.saturating_sub(1).min(n - 1);
     let start_value = y[pre_release_index];
 
@@ -286,6 +368,50 @@ pub fn detect_release(
         let idx = t.partition_point(|v| *v < end_s).min(n - 1);
         (end_s, y[idx], idx)
     };
+    // The window reaches 3 rising edges (at least 12 frames) before the edge's end, and
+    // at least 2.5 times the peak-rate-to-motion-peak time before the peak rate: the rate's
+    // 10 % crossing that bounds the edge is noisy at high frame rates, where it can fall long
+    // after the release.
+    let edge = e.saturating_sub(j);
+    let t_mid = peak_rate_time(&rate, &mid, s, i_max);
+    let reach_s = t_mid - 2.5 * (motion_peak_s - t_mid).max(0.0);
+    let fit_start = (e + w)
+        .saturating_sub((3 * edge).max(12))
+        .min(t.partition_point(|v| *v < reach_s));
+    // With three or more frames on the rising edge the fit ends at the peak rate (the
+    // inflection), where a real spring's motion still follows 1 - cos closely; with fewer it
+    // needs the frames up to the motion peak to have enough on the curve.
+    let fit_end = if e >= j + 3 {
+        i_max + w / 2 + 1
+    } else {
+        motion_peak_index + 1
+    };
+    // A fit that ends on the first frames of its window found no joint there.
+    let fitted = spring_onset(t, y, fit_start, fit_end, t_mid)
+        .filter(|(r, _)| *r > t[(fit_start + 2).min(n - 1)] && *r <= mid[e]);
+    let (release_s, release_sd_s) = fitted
+        .map(|(r, sd)| (r, sd.max(0.05 * period_s)))
+        .or_else(|| {
+            edge_crossing(&rate[..=i_max], &mid[..=i_max], s, peak, level)
+                .filter(|r| {
+                    *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[i_max]
+                })
+                .map(|r| (r, quantisation_sd))
+        })
+        .unwrap_or_else(|| {
+            if j == 0 {
+                (mid[0], quantisation_sd)
+            } else {
+                let (r0, r1) = (s * rate[j - 1], s * rate[j]);
+                let f = ((level - r0) / (r1 - r0)).clamp(0.0, 1.0);
+                let dt = mid[j] - mid[j - 1];
+                // Rate noise moves the crossing by (rate noise) / (rate slope).
+                let rate_noise = noise_sigma * std::f64::consts::SQRT_2 / (w as f64 * period_s);
+                let slope = ((r1 - r0) / dt).abs().max(f64::MIN_POSITIVE);
+                let sd = quantisation_sd.hypot(rate_noise / slope).min(dt);
+                (mid[j - 1] + f * dt, sd)
+            }
+        });
     let jump = motion_peak_value - start_value;
     let too_slow = motion_peak_s - release_s > config.max_release_ms * 1e-3;
     if jump.abs() < config.min_jump_sigma * noise_sigma || motion_peak_s <= release_s || too_slow {
@@ -356,5 +482,71 @@ mod tests {
         let t: Vec<f64> = (0..500).map(|k| k as f64 * 1e-3).collect();
         let y: Vec<f64> = t.iter().map(|&t| 100.0 - 10.0 * (t / 0.5)).collect();
         assert!(detect_release(&t, &y, 1e-3, 0.5, &ReleaseConfig::default()).is_none());
+    }
+
+    /// Frames of a release of shape `rise` (0 at rest to 1 at the peak, over `dur` seconds)
+    /// from 100 to 160 at `tr`, then a damped swing back that leaves the peak level.
+    fn shaped(fps: f64, tr: f64, dur: f64, rise: impl Fn(f64) -> f64) -> (Vec<f64>, Vec<f64>) {
+        let t: Vec<f64> = (0..(0.3 * fps) as usize).map(|k| k as f64 / fps).collect();
+        let y = t
+            .iter()
+            .map(|&t| {
+                if t < tr {
+                    100.0
+                } else if t < tr + dur {
+                    100.0 + 60.0 * rise((t - tr) / dur)
+                } else {
+                    let h = t - tr - dur;
+                    let swing = 1.0 - (2.0 * std::f64::consts::PI * 80.0 * h).cos();
+                    160.0 - 10.0 * swing * (-20.0 * h).exp()
+                }
+            })
+            .collect();
+        (t, y)
+    }
+
+    #[test]
+    fn releases_of_other_shapes_than_one_minus_cosine_are_timed_within_a_third_of_a_frame() {
+        // A smoothstep rise (acceleration falling linearly through zero) and a damped spring
+        // (damping ratio 0.3) let go from rest: neither is the undamped 1 - cos shape, and the
+        // fit chooses among damping ratios 0-0.6. Noise-free, 20 release phases each; the
+        // errors measured were at most 0.27 frame.
+        let z: f64 = 0.3;
+        let root = (1.0 - z * z).sqrt();
+        let damped = move |u: f64| {
+            let x = std::f64::consts::PI * u;
+            let v = 1.0 - (-z / root * x).exp() * (x.cos() + z / root * x.sin());
+            v / (1.0 + (-z / root * std::f64::consts::PI).exp())
+        };
+        let smoothstep = |u: f64| 3.0 * u * u - 2.0 * u * u * u;
+        for fps in [1000.0, 4000.0] {
+            for i in 0..20 {
+                let tr = 0.1 + i as f64 * 0.05 / fps;
+                for (name, (t, y)) in [
+                    ("smoothstep", shaped(fps, tr, 0.004, smoothstep)),
+                    ("damped", shaped(fps, tr, 0.004, damped)),
+                ] {
+                    let ev =
+                        detect_release(&t, &y, 1.0 / fps, 0.01, &ReleaseConfig::default()).unwrap();
+                    let err = (ev.release_s - tr) * fps;
+                    assert!(err.abs() < 1.0 / 3.0, "{name} at {fps} fps: {err} frames");
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn release_shape_is_one_minus_cosine_undamped_and_peaks_its_speed_at_h_mid() {
+        let h_mid = 0.002;
+        for h in [0.0005, 0.001, 0.003] {
+            let want = 1.0 - (std::f64::consts::PI * h / (2.0 * h_mid)).cos();
+            assert!((release_shape(h, h_mid, 0.0) - want).abs() < 1e-12);
+        }
+        for zeta in [0.2, 0.4, 0.6] {
+            let speed = |h: f64| {
+                (release_shape(h + 1e-7, h_mid, zeta) - release_shape(h - 1e-7, h_mid, zeta)) / 2e-7
+            };
+            assert!(speed(h_mid) > speed(0.9 * h_mid) && speed(h_mid) > speed(1.1 * h_mid));
+        }
     }
 }
