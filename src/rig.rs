@@ -106,7 +106,7 @@ impl Default for RigProfile {
             low_snr_db: 20.0,
             efficiency_model: EfficiencyModel::Energy,
             highpass_hz: 1000.0,
-            click_false_alarm: 0.01,
+            click_false_alarm: 0.005,
             click_window_ms: 0.5,
             double_click_window_ms: 30.0,
             min_click_centroid_hz: 2000.0,

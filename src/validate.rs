@@ -249,6 +249,17 @@ fn pick_kind(rng: &mut ChaCha8Rng) -> TrialKind {
 
 /// Synthesises `config.count` trials like the rig, analyses them and scores the results.
 pub fn validate(rig: &RigProfile, config: &ValidateConfig) -> ValidationReport {
+    validate_keeping(rig, config, false).0
+}
+
+/// As [`validate`], also returning the synthetic trials that disagree with their truth when
+/// `keep` is set (to write out and look at, e.g. with `latchtime trial`).
+pub fn validate_keeping(
+    rig: &RigProfile,
+    config: &ValidateConfig,
+    keep: bool,
+) -> (ValidationReport, Vec<synth::SynthTrial>) {
+    let mut kept = Vec::new();
     let mut rng = ChaCha8Rng::seed_from_u64(config.seed);
     let mut scratch = Scratch::default();
     let mut events: Vec<(&'static str, &'static str, Vec<Sample>)> = vec![
@@ -342,6 +353,9 @@ pub fn validate(rig: &RigProfile, config: &ValidateConfig) -> ValidationReport {
                 true_clicks_s: trial.truth.clicks_s.clone().unwrap_or_default(),
                 found_clicks_s: record.clicks_s.clone().unwrap_or_default(),
             });
+            if keep {
+                kept.push(trial);
+            }
         }
     }
     let mut rows = Vec::new();
@@ -388,14 +402,15 @@ pub fn validate(rig: &RigProfile, config: &ValidateConfig) -> ValidationReport {
             false_alarm_rate: (fp + tn > 0).then(|| fp as f64 / (fp + tn) as f64),
         })
         .collect();
-    ValidationReport {
+    let report = ValidationReport {
         config: config.clone(),
         trials: config.count,
         errors,
         events: rows,
         flags,
         disagreements,
-    }
+    };
+    (report, kept)
 }
 
 /// Counts one flag decision into (true positives, false positives, false negatives, true

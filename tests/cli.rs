@@ -228,3 +228,55 @@ fn shipped_sample_data_is_exactly_what_synth_demo_writes() {
         latchtime::RigProfile::from_json(latchtime::synth::DEMO_RIG_JSON).unwrap()
     );
 }
+
+#[test]
+fn validate_saves_the_trials_that_disagree_and_refuses_a_folder_in_use() {
+    let dir = tempfile::tempdir().unwrap();
+    let keep = dir.path().join("disagreeing");
+    let keep_arg = keep.to_string_lossy().into_owned();
+    let rig = repo().join("calibration/demo-rig.json");
+    let rig_arg = rig.to_string_lossy().into_owned();
+    // Clicks at 8-10 dB are often missed at 48 kHz, so some of 40 trials disagree.
+    let args = [
+        "validate",
+        "--rig",
+        &rig_arg,
+        "--count",
+        "40",
+        "--sample-rate-hz",
+        "48000",
+        "--fps",
+        "500",
+        "--snr-db",
+        "8:10",
+        "--format",
+        "json",
+        "--save-disagreements",
+        &keep_arg,
+    ];
+    let out = bin()
+        .args(args)
+        .assert()
+        .success()
+        .get_output()
+        .stdout
+        .clone();
+    let report: serde_json::Value = serde_json::from_slice(&out).unwrap();
+    let names: Vec<&str> = report["disagreements"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|d| d["trial"].as_str().unwrap())
+        .collect();
+    assert!(!names.is_empty());
+    for name in &names {
+        let truth = read_json(&keep.join(format!("{name}.truth.json")));
+        assert_eq!(truth["trial"], *name);
+        assert!(keep.join(format!("{name}.wav")).is_file());
+        assert!(keep.join(format!("{name}.frames.csv")).is_file());
+    }
+    let files = std::fs::read_dir(&keep).unwrap().count();
+    assert_eq!(files, 3 * names.len());
+    // Running again into the same folder would mix two runs: refused as a usage error.
+    bin().args(args).assert().code(2);
+}

@@ -120,13 +120,14 @@ fn check(r: &ValidationReport, g: Guards) {
     );
     // Target: double_click and no_click precision and recall >= 0.97.
     // double_click counts every second click, and those the synthesiser makes 3-8 dB weaker
-    // than a first click near the 10 dB floor cannot be heard (recall 0.73-0.98 measured);
-    // leaving out second clicks below 10 dB, the target holds within one trial (0.967-1.0).
+    // than a first click near the 10 dB floor cannot be heard (recall 0.73-1.0 measured);
+    // leaving out second clicks below 10 dB, recall is 0.967-1.0 (one trial short at 96 kHz,
+    // guarded at 0.95). Precision 1.0 at all three rigs.
     let double = flag(r, "double_click");
-    assert!(double.precision.unwrap() >= 0.95, "{at}: {double:?}");
+    assert!(double.precision.unwrap() >= 0.97, "{at}: {double:?}");
     let audible = flag(r, latchtime::validate::DOUBLE_AUDIBLE_ROW);
     assert!(
-        audible.precision.unwrap() >= 0.95 && audible.recall.unwrap() >= 0.95,
+        audible.precision.unwrap() >= 0.97 && audible.recall.unwrap() >= 0.95,
         "{at}: {audible:?}"
     );
     // no_click: every missed click is a false no_click, so its precision follows the misses

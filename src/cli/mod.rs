@@ -78,6 +78,10 @@ struct ValidateArgs {
     /// Round timestamps to this many significant digits.
     #[arg(long)]
     timestamp_digits: Option<u32>,
+    /// Write the synthetic trials that disagree with their truth (audio, frames, truth) into
+    /// this new or empty folder, to look at one by one.
+    #[arg(long)]
+    save_disagreements: Option<PathBuf>,
     /// Output format.
     #[arg(long, value_enum, default_value_t = Format::Text)]
     format: Format,
@@ -555,7 +559,30 @@ fn run_validate(args: ValidateArgs) -> ExitCode {
             "sample rate must be 1000..1000000 Hz and fps positive",
         );
     }
-    let report = validate::validate(&rig, &config);
+    if let Some(dir) = &args.save_disagreements {
+        let occupied = std::fs::read_dir(dir).is_ok_and(|mut d| d.next().is_some());
+        if occupied {
+            return fail(
+                EXIT_USAGE,
+                format!(
+                    "{}: --save-disagreements needs a new or empty folder",
+                    dir.display()
+                ),
+            );
+        }
+    }
+    let (report, kept) =
+        validate::validate_keeping(&rig, &config, args.save_disagreements.is_some());
+    if let Some(dir) = &args.save_disagreements {
+        if let Err(e) = std::fs::create_dir_all(dir) {
+            return fail(EXIT_OUTPUT, format!("{}: {e}", dir.display()));
+        }
+        for trial in &kept {
+            if let Err(e) = synth::write_trial_with(dir, trial, config.timestamp_digits) {
+                return fail(EXIT_OUTPUT, e);
+            }
+        }
+    }
     match args.format {
         Format::Json => match serde_json::to_string_pretty(&report) {
             Ok(text) => println!("{text}"),

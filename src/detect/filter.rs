@@ -65,19 +65,47 @@ fn steady_state(sections: &[Section]) -> Vec<[f64; 2]> {
 }
 
 /// Runs the cascade over `x` in place (transposed direct form II), starting from `zi * x0`.
+/// All sections advance together, one sample at a time: each section's recursion is a serial
+/// chain, and running them side by side lets the processor overlap the chains.
 fn run(sections: &[Section], zi: &[[f64; 2]], x: &mut [f64]) {
     let Some(&x0) = x.first() else { return };
-    for (s, z) in sections.iter().zip(zi) {
-        let (mut z1, mut z2) = (z[0] * x0, z[1] * x0);
-        let [b0, b1, b2] = s.b;
-        let [a1, a2] = s.a;
-        for v in x.iter_mut() {
-            let input = *v;
-            let out = b0 * input + z1;
-            z1 = b1 * input - a1 * out + z2;
-            z2 = b2 * input - a2 * out;
-            *v = out;
+    match sections.len() {
+        2 => run_fused::<2>(sections, zi, x0, x),
+        4 => run_fused::<4>(sections, zi, x0, x),
+        _ => {
+            for (s, z) in sections.iter().zip(zi) {
+                let (mut z1, mut z2) = (z[0] * x0, z[1] * x0);
+                let [b0, b1, b2] = s.b;
+                let [a1, a2] = s.a;
+                for v in x.iter_mut() {
+                    let input = *v;
+                    let out = b0 * input + z1;
+                    z1 = b1 * input - a1 * out + z2;
+                    z2 = b2 * input - a2 * out;
+                    *v = out;
+                }
+            }
         }
+    }
+}
+
+fn run_fused<const N: usize>(sections: &[Section], zi: &[[f64; 2]], x0: f64, x: &mut [f64]) {
+    let mut z = [[0.0; 2]; N];
+    let mut coef = [([0.0; 3], [0.0; 2]); N];
+    for k in 0..N {
+        z[k] = [zi[k][0] * x0, zi[k][1] * x0];
+        coef[k] = (sections[k].b, sections[k].a);
+    }
+    for v in x.iter_mut() {
+        let mut input = *v;
+        for k in 0..N {
+            let ([b0, b1, b2], [a1, a2]) = coef[k];
+            let out = b0 * input + z[k][0];
+            z[k][0] = b1 * input - a1 * out + z[k][1];
+            z[k][1] = b2 * input - a2 * out;
+            input = out;
+        }
+        *v = input;
     }
 }
 
