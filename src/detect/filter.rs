@@ -72,18 +72,10 @@ fn run(sections: &[Section], zi: &[[f64; 2]], x: &mut [f64]) {
     match sections.len() {
         2 => run_fused::<2>(sections, zi, x0, x),
         4 => run_fused::<4>(sections, zi, x0, x),
+        // Other cascades, one section at a time (each starts from its state for `x0`).
         _ => {
-            for (s, z) in sections.iter().zip(zi) {
-                let (mut z1, mut z2) = (z[0] * x0, z[1] * x0);
-                let [b0, b1, b2] = s.b;
-                let [a1, a2] = s.a;
-                for v in x.iter_mut() {
-                    let input = *v;
-                    let out = b0 * input + z1;
-                    z1 = b1 * input - a1 * out + z2;
-                    z2 = b2 * input - a2 * out;
-                    *v = out;
-                }
+            for (s, z) in sections.chunks(1).zip(zi.chunks(1)) {
+                run_fused::<1>(s, z, x0, x);
             }
         }
     }
