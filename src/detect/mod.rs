@@ -114,6 +114,12 @@ pub fn solve_linear<const N: usize>(mut m: [[f64; N]; N], mut v: [f64; N]) -> Op
 /// `times`: walking out from `best`, where the profile crosses `limit`, interpolated between
 /// grid points (a grid end or a missing value stops the walk).
 pub fn profile_half_width(times: &[f64], sse: &[Option<f64>], best: usize, limit: f64) -> f64 {
+    let (lo, hi) = profile_interval(times, sse, best, limit);
+    0.5 * (hi - lo)
+}
+
+/// Ends of the likelihood interval of [`profile_half_width`], in the units of `times`.
+pub fn profile_interval(times: &[f64], sse: &[Option<f64>], best: usize, limit: f64) -> (f64, f64) {
     let edge = |step: isize| -> f64 {
         let mut k = best;
         loop {
@@ -133,7 +139,7 @@ pub fn profile_half_width(times: &[f64], sse: &[Option<f64>], best: usize, limit
             }
         }
     };
-    0.5 * (edge(1) - edge(-1))
+    (edge(-1), edge(1))
 }
 
 /// Standard deviation of the parabola-vertex time around sample `k` when each sample carries
