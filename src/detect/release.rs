@@ -285,10 +285,11 @@ pub fn detect_release(
     // Smallest window over which the largest change is clearly more than noise: eight noise
     // standard deviations clear of the largest that noise alone reaches over the series
     // (about sqrt(2 ln n) of them). Over tens of thousands of frames a noise spike in the rate
-    // can otherwise outgrow a release spread over hundreds of frames.
+    // can otherwise outgrow a release spread over hundreds of frames. Windows run to 1024
+    // frames: a 6 ms release at 100k fps moves less than that clearance in 64.
     let diff_sigma = (noise_sigma * std::f64::consts::SQRT_2).max(f64::MIN_POSITIVE);
     let clear_sigma = MIN_WINDOW_SIGMA + (2.0 * (n as f64).ln()).sqrt();
-    let w = (0..7)
+    let w = (0..11)
         .map(|p| 1usize << p)
         .take_while(|w| *w <= n / 8)
         .find(|&w| {
@@ -324,7 +325,12 @@ pub fn detect_release(
     let pre_release_index = j.saturating_sub(1).min(n - 1);
     let start_value = y[pre_release_index];
 
-    let delta_floor = 8.0 * noise_sigma;
+    // The hysteresis must outgrow the range that noise alone spans over the frames after the
+    // peak rate (about 2 sqrt(2 ln n) standard deviations): at 100k fps an overdamped release
+    // is followed by tens of thousands of flat frames, and a fixed 8 sd was crossed by noise,
+    // which made a late "overshoot" out of it and lost the release.
+    let after = (n - i_max).max(2) as f64;
+    let delta_floor = 8.0f64.max(2.0 * (2.0 * after.ln()).sqrt() + 1.0) * noise_sigma;
     let mut ext_idx = (i_max + w).min(n - 1);
     let mut ext = s * y[ext_idx];
     let mut overshoot = false;
@@ -532,6 +538,46 @@ mod tests {
                     assert!(err.abs() < 1.0 / 3.0, "{name} at {fps} fps: {err} frames");
                 }
             }
+        }
+    }
+
+    #[test]
+    fn a_slow_overdamped_release_at_100k_fps_is_found_among_flat_noisy_frames() {
+        // 0.4 s at 100k fps, a 5.8 ms release of 40 units in noise of 0.5, then 17 ms short of
+        // 0.2 s of flat frames. With a window capped at 64 frames no change cleared the noise
+        // (no release); with a fixed 8 sd hysteresis the flat tail's noise made a late
+        // "overshoot" and the release was lost as too slow.
+        use rand::SeedableRng;
+        use rand_distr::{Distribution, Normal};
+        let fps = 100_000.0;
+        let (tr, dur) = (0.2, 5.8e-3);
+        let noise = Normal::new(0.0, 0.5).unwrap();
+        let t: Vec<f64> = (0..40_000).map(|k| k as f64 / fps).collect();
+        for seed in 0..8 {
+            let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+            let y: Vec<f64> = t
+                .iter()
+                .map(|&t| {
+                    let u = ((t - tr) / dur).clamp(0.0, 1.0);
+                    let rise = 20.0 * (1.0 - (std::f64::consts::PI * u).cos());
+                    100.0 + rise + noise.sample(&mut rng)
+                })
+                .collect();
+            let sigma = frame_noise_sigma(&y);
+            let config = ReleaseConfig::default();
+            let ev = detect_release(&t, &y, 1.0 / fps, sigma, &config)
+                .unwrap_or_else(|| panic!("seed {seed}: no release"));
+            assert!(!ev.overshoot, "seed {seed}");
+            // Release within 10 frames (0.1 ms). The end of an overdamped phase is where the
+            // rate falls back through 10 % of its peak, 3.2 % of the phase (19 frames) before
+            // the motion stops; 40 frames are allowed for the rate noise.
+            let release_err = (ev.release_s - tr) * fps;
+            let end_err = (ev.motion_peak_s - (tr + dur)) * fps;
+            assert!(
+                release_err.abs() <= 10.0,
+                "seed {seed}: release {release_err} frames"
+            );
+            assert!(end_err.abs() <= 40.0, "seed {seed}: end {end_err} frames");
         }
     }
 
