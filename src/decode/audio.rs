@@ -230,22 +230,36 @@ fn packed_samples(
     let frames = data
         .chunks_exact(frame_bytes)
         .map(|f| &f[channel * width..(channel + 1) * width]);
+    // Scales are powers of two, so multiplying by their inverse is exact (and a division per
+    // sample costs as much as the rest of the decoding).
     let (samples, clip_level): (Vec<f64>, f64) = match (spec.sample_format, width) {
+        (hound::SampleFormat::Int, 2) if frame_bytes == 2 => (
+            // Mono 16-bit, the common case: no per-frame channel slicing.
+            data.chunks_exact(2)
+                .map(|b| f64::from(i16::from_le_bytes([b[0], b[1]])) * (1.0 / 32_768.0))
+                .collect(),
+            32_767.0 / 32_768.0,
+        ),
         (hound::SampleFormat::Int, 2) => (
             frames
-                .map(|b| f64::from(i16::from_le_bytes([b[0], b[1]])) / 32_768.0)
+                .map(|b| f64::from(i16::from_le_bytes([b[0], b[1]])) * (1.0 / 32_768.0))
                 .collect(),
             32_767.0 / 32_768.0,
         ),
         (hound::SampleFormat::Int, 3) => (
             frames
-                .map(|b| f64::from(i32::from_le_bytes([0, b[0], b[1], b[2]]) >> 8) / 8_388_608.0)
+                .map(|b| {
+                    f64::from(i32::from_le_bytes([0, b[0], b[1], b[2]]) >> 8) * (1.0 / 8_388_608.0)
+                })
                 .collect(),
             8_388_607.0 / 8_388_608.0,
         ),
         (hound::SampleFormat::Int, 4) => (
             frames
-                .map(|b| f64::from(i32::from_le_bytes([b[0], b[1], b[2], b[3]])) / 2_147_483_648.0)
+                .map(|b| {
+                    f64::from(i32::from_le_bytes([b[0], b[1], b[2], b[3]]))
+                        * (1.0 / 2_147_483_648.0)
+                })
                 .collect(),
             2_147_483_647.0 / 2_147_483_648.0,
         ),

@@ -25,7 +25,9 @@ use rustfft::num_complex::Complex;
 use rustfft::{Fft, FftPlanner};
 use serde::{Deserialize, Serialize};
 
-use super::filter::{butterworth_highpass, butterworth_lowpass, filter_causal, filtfilt};
+use super::filter::{
+    butterworth_highpass, butterworth_lowpass, filter_causal, filter_causal_pair, filtfilt,
+};
 use super::MAD_TO_SIGMA;
 use crate::signal::AudioSignal;
 
@@ -134,6 +136,8 @@ pub struct ClickScratch {
     planner: FftPlanner<f64>,
     plans: Vec<(usize, Arc<dyn Fft<f64>>)>,
     buffer: Vec<Complex<f64>>,
+    /// Trailing window energies of the window being scanned.
+    energy: Vec<f64>,
 }
 
 impl Default for ClickScratch {
@@ -142,6 +146,7 @@ impl Default for ClickScratch {
             planner: FftPlanner::new(),
             plans: Vec::new(),
             buffer: Vec::new(),
+            energy: Vec::new(),
         }
     }
 }
@@ -191,10 +196,25 @@ fn chi2_mean_median(k: usize) -> f64 {
 fn block_residuals(x: &[f64], n: usize) -> Vec<f64> {
     let tc: Vec<f64> = (0..n).map(|i| i as f64 - (n - 1) as f64 / 2.0).collect();
     let stt: f64 = tc.iter().map(|t| t * t).sum();
+    // Four running sums per statistic, so the compiler can keep them in one vector register
+    // each (a single chain of additions would wait on itself every sample).
     x.chunks_exact(n)
         .map(|c| {
-            let (mut sx, mut sxx, mut stx) = (0.0, 0.0, 0.0);
-            for (v, t) in c.iter().zip(&tc) {
+            let (mut sx, mut sxx, mut stx) = ([0.0f64; 4], [0.0f64; 4], [0.0f64; 4]);
+            let (head, tail) = c.split_at(n - n % 4);
+            for (v4, t4) in head.chunks_exact(4).zip(tc.chunks_exact(4)) {
+                for l in 0..4 {
+                    sx[l] += v4[l];
+                    sxx[l] += v4[l] * v4[l];
+                    stx[l] += t4[l] * v4[l];
+                }
+            }
+            let (mut sx, mut sxx, mut stx) = (
+                sx.iter().sum::<f64>(),
+                sxx.iter().sum::<f64>(),
+                stx.iter().sum::<f64>(),
+            );
+            for (v, t) in tail.iter().zip(&tc[n - n % 4..]) {
                 sx += v;
                 sxx += v * v;
                 stx += t * v;
@@ -455,19 +475,18 @@ fn scan_window(
     // only over the window (half the work of forward-backward). The high-passed signal also
     // feeds the AIC pick, which wants the causal form. Zero-phase filtering is kept for the
     // peak and duration, on a short piece around each transient.
-    let hp = filter_causal(sections, x);
     let noise_sigma = noise_var.sqrt();
     // Detection runs on the band [highpass, detection_top]; its noise level is measured on
     // this window (robustly: the transient is a small part of it).
     let top = config.detection_top_hz.min(0.45 * fs);
     let band_hz = (top - config.highpass_hz).max(0.05 * fs);
-    let band_limited;
-    let z: &[f64] = if top < 0.44 * fs {
-        band_limited = filter_causal(&butterworth_lowpass(4, top, fs), &hp);
-        &band_limited
+    let (hp, band_limited) = if top < 0.44 * fs {
+        let (hp, band) = filter_causal_pair(sections, &butterworth_lowpass(4, top, fs), x);
+        (hp, Some(band))
     } else {
-        &hp
+        (filter_causal(sections, x), None)
     };
+    let z: &[f64] = band_limited.as_deref().unwrap_or(&hp);
     // Noise of the band signal, from the quiet lead-in before the candidate when there is
     // one: its variance, and its autocorrelation, which sets how many independent terms a
     // sum of b squared samples holds (b / sum of squared correlations over all lags).
@@ -499,11 +518,7 @@ fn scan_window(
             ((4.0 * fs / band_hz).ceil() as usize).clamp(1, quiet.len().saturating_sub(1).max(1));
         let rho2: f64 = (1..=max_lag)
             .map(|j| {
-                let cj: f64 = quiet
-                    .iter()
-                    .zip(&quiet[j.min(quiet.len())..])
-                    .map(|(a, b)| a * b)
-                    .sum();
+                let cj = dot(quiet, &quiet[j.min(quiet.len())..]);
                 (cj / c0).powi(2)
             })
             .sum();
@@ -536,12 +551,20 @@ fn scan_window(
     // Spans of trailing-energy crossings; `first` is the start of the first window crossing,
     // and whether the span was only taken at the guided threshold.
     let mut spans: Vec<(usize, usize, bool, f64)> = Vec::new();
-    let mut e = 0.0;
-    for i in 0..z.len() {
-        e += z[i] * z[i];
+    // The trailing energies first, in a loop with nothing but the running sum in it (with the
+    // tests below inside it, the sum went through memory every sample).
+    let energy = &mut scratch.energy;
+    energy.clear();
+    energy.resize(z.len(), 0.0);
+    let mut run = 0.0;
+    for (i, slot) in energy.iter_mut().enumerate() {
+        run += z[i] * z[i];
         if i >= b {
-            e -= z[i - b] * z[i - b];
+            run -= z[i - b] * z[i - b];
         }
+        *slot = run;
+    }
+    for (i, &e) in energy.iter().enumerate() {
         if i + 1 < b || e <= t_low {
             continue;
         }
@@ -634,6 +657,21 @@ fn scan_window(
         });
         previous_end = last + 1;
     }
+}
+
+/// Dot product of the common length of `a` and `b`, in four running sums (vectorisable).
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    let n = a.len().min(b.len());
+    let (a, b) = (&a[..n], &b[..n]);
+    let mut acc = [0.0f64; 4];
+    let split = n - n % 4;
+    for (a4, b4) in a[..split].chunks_exact(4).zip(b[..split].chunks_exact(4)) {
+        for l in 0..4 {
+            acc[l] += a4[l] * b4[l];
+        }
+    }
+    let tail: f64 = a[split..].iter().zip(&b[split..]).map(|(x, y)| x * y).sum();
+    acc.iter().sum::<f64>() + tail
 }
 
 /// AIC onset picker (Maeda 1985) on a window: the index k minimising
