@@ -69,15 +69,16 @@ pub fn decode_frames(path: &Path, bytes: &[u8], options: &FrameOptions) -> Resul
     if bytes.is_empty() {
         return Err(Error::malformed(path, "file is empty (0 bytes)"));
     }
+    // Fields are trimmed where they are read: the reader's own trimming builds a new record
+    // for every row.
     let mut reader = csv::ReaderBuilder::new()
-        .trim(csv::Trim::All)
         .has_headers(true)
         .from_reader(bytes);
     let headers: Vec<String> = reader
         .headers()
         .map_err(|e| Error::malformed(path, format!("cannot read the header row: {e}")))?
         .iter()
-        .map(str::to_string)
+        .map(|h| h.trim().to_string())
         .collect();
     if headers.iter().all(|h| h.parse::<f64>().is_ok()) {
         return Err(Error::malformed(
@@ -88,11 +89,17 @@ pub fn decode_frames(path: &Path, bytes: &[u8], options: &FrameOptions) -> Resul
     let find = |name: &str| headers.iter().position(|h| h == name);
     let time_col = find("time_s");
     let frame_col = find("frame");
-    let mut records = reader.records();
-    let first = match records.next() {
-        Some(r) => r.map_err(|e| Error::malformed(path, format!("cannot read line 2: {e}")))?,
-        None => return Err(Error::malformed(path, "no frames after the header row")),
+    // One record is read into again and again (a new record per row costs an allocation).
+    let mut record = csv::StringRecord::new();
+    let read_row = |reader: &mut csv::Reader<&[u8]>, record: &mut csv::StringRecord, line: u64| {
+        reader
+            .read_record(record)
+            .map_err(|e| Error::malformed(path, format!("cannot read line {line}: {e}")))
     };
+    if !read_row(&mut reader, &mut record, 2)? {
+        return Err(Error::malformed(path, "no frames after the header row"));
+    }
+    let first = &record;
     let motion_col = match &options.motion_column {
         Some(name) => find(name).ok_or_else(|| {
             Error::malformed(
@@ -104,7 +111,9 @@ pub fn decode_frames(path: &Path, bytes: &[u8], options: &FrameOptions) -> Resul
             .find(|&i| {
                 Some(i) != time_col
                     && Some(i) != frame_col
-                    && first.get(i).is_some_and(|v| v.parse::<f64>().is_ok())
+                    && first
+                        .get(i)
+                        .is_some_and(|v| v.trim().parse::<f64>().is_ok())
             })
             .ok_or_else(|| {
                 Error::malformed(path, "no numeric column besides `time_s` and `frame`")
@@ -126,13 +135,10 @@ pub fn decode_frames(path: &Path, bytes: &[u8], options: &FrameOptions) -> Resul
     let mut frame_index = Vec::new();
     let mut motion = Vec::new();
     let mut loading = Vec::new();
-    let rows = std::iter::once(Ok(first)).chain(records);
-    for (row, record) in rows.enumerate() {
-        let line = row as u64 + 2;
-        let record =
-            record.map_err(|e| Error::malformed(path, format!("cannot read line {line}: {e}")))?;
+    let mut line = 2u64;
+    loop {
         let field = |col: usize| {
-            record.get(col).ok_or_else(|| {
+            record.get(col).map(str::trim).ok_or_else(|| {
                 Error::malformed(
                     path,
                     format!("line {line}: missing column `{}`", headers[col]),
@@ -165,6 +171,10 @@ pub fn decode_frames(path: &Path, bytes: &[u8], options: &FrameOptions) -> Resul
                 &headers[loading_col],
                 field(loading_col)?,
             )?);
+        }
+        line += 1;
+        if !read_row(&mut reader, &mut record, line)? {
+            break;
         }
     }
     if motion.len() < MIN_FRAMES {
@@ -247,6 +257,17 @@ mod tests {
         let f = decode_frames(Path::new("a.frames.csv"), &bytes, &FrameOptions::default()).unwrap();
         assert_eq!(f.motion_column, "brightness");
         assert_eq!(f.len(), 20);
+        assert_eq!(f.time_s[3], 0.003);
+        assert_eq!(f.motion[3], 103.0);
+    }
+
+    #[test]
+    fn spaces_around_names_and_values_are_ignored() {
+        let bytes = csv_text(" frame , time_s , brightness ", 20, |i| {
+            format!(" {i} ,  {} , {} ", i as f64 * 0.001, 100 + i)
+        });
+        let f = decode_frames(Path::new("s.frames.csv"), &bytes, &FrameOptions::default()).unwrap();
+        assert_eq!(f.motion_column, "brightness");
         assert_eq!(f.time_s[3], 0.003);
         assert_eq!(f.motion[3], 103.0);
     }

@@ -81,6 +81,16 @@ fn run(sections: &[Section], zi: &[[f64; 2]], x: &mut [f64]) {
     }
 }
 
+/// One sample through one section (transposed direct form II).
+#[inline(always)]
+fn step(coef: &([f64; 3], [f64; 2]), z: &mut [f64; 2], input: f64) -> f64 {
+    let ([b0, b1, b2], [a1, a2]) = *coef;
+    let out = b0 * input + z[0];
+    z[0] = b1 * input - a1 * out + z[1];
+    z[1] = b2 * input - a2 * out;
+    out
+}
+
 fn run_fused<const N: usize>(sections: &[Section], zi: &[[f64; 2]], x0: f64, x: &mut [f64]) {
     let mut z = [[0.0; 2]; N];
     let mut coef = [([0.0; 3], [0.0; 2]); N];
@@ -91,11 +101,7 @@ fn run_fused<const N: usize>(sections: &[Section], zi: &[[f64; 2]], x0: f64, x: 
     for v in x.iter_mut() {
         let mut input = *v;
         for k in 0..N {
-            let ([b0, b1, b2], [a1, a2]) = coef[k];
-            let out = b0 * input + z[k][0];
-            z[k][0] = b1 * input - a1 * out + z[k][1];
-            z[k][1] = b2 * input - a2 * out;
-            input = out;
+            input = step(&coef[k], &mut z[k], input);
         }
         *v = input;
     }
@@ -151,19 +157,11 @@ fn run_pair<const N: usize, const M: usize>(
     for &v in x {
         let mut input = v;
         for k in 0..N {
-            let ([b0, b1, b2], [a1, a2]) = c1[k];
-            let out = b0 * input + z1[k][0];
-            z1[k][0] = b1 * input - a1 * out + z1[k][1];
-            z1[k][1] = b2 * input - a2 * out;
-            input = out;
+            input = step(&c1[k], &mut z1[k], input);
         }
         a.push(input);
         for k in 0..M {
-            let ([b0, b1, b2], [a1, a2]) = c2[k];
-            let out = b0 * input + z2[k][0];
-            z2[k][0] = b1 * input - a1 * out + z2[k][1];
-            z2[k][1] = b2 * input - a2 * out;
-            input = out;
+            input = step(&c2[k], &mut z2[k], input);
         }
         b.push(input);
     }
