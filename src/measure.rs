@@ -113,6 +113,8 @@ pub struct TrialRecord {
     pub thumps_s: Option<Vec<f64>>,
     pub loading_onset_s: Option<f64>,
     pub loading_onset_uncertainty_ms: Option<f64>,
+    pub loading_onset_early_s: Option<f64>,
+    pub loading_onset_late_s: Option<f64>,
     pub latch_release_s: Option<f64>,
     pub latch_release_sd_ms: Option<f64>,
     pub latch_release_video_s: Option<f64>,
@@ -151,6 +153,8 @@ impl TrialRecord {
             thumps_s: None,
             loading_onset_s: None,
             loading_onset_uncertainty_ms: None,
+            loading_onset_early_s: None,
+            loading_onset_late_s: None,
             latch_release_s: None,
             latch_release_sd_ms: None,
             latch_release_video_s: None,
@@ -250,6 +254,8 @@ pub fn measure(
         }
         record.loading_onset_s = video.loading.as_ref().map(|l| l.onset_s);
         record.loading_onset_uncertainty_ms = video.loading.as_ref().map(|l| l.uncertainty_ms);
+        record.loading_onset_early_s = video.loading.as_ref().map(|l| l.early_s);
+        record.loading_onset_late_s = video.loading.as_ref().map(|l| l.late_s);
         if video.loading.is_none() {
             flags.push(Flag::NoLoading);
         }
@@ -391,6 +397,8 @@ mod tests {
             loading: Some(crate::detect::loading::LoadingOnset {
                 onset_s: 0.016,
                 uncertainty_ms: 1.0,
+                early_s: 0.015,
+                late_s: 0.0165,
                 drift_per_s: -1.0,
                 f_statistic: 100.0,
             }),

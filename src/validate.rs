@@ -159,7 +159,8 @@ pub struct EventAccuracy {
     pub misses: usize,
     pub median_abs_error: Option<f64>,
     pub p95_abs_error: Option<f64>,
-    /// Share of trials whose reported 95 % interval covers the truth (loading onset only).
+    /// Share of trials whose reported 95 % interval (`loading_onset_early_s` to
+    /// `loading_onset_late_s`) covers the truth (loading onset only).
     pub coverage_95: Option<f64>,
 }
 
@@ -469,8 +470,8 @@ fn score_trial(
     }
     if let (Some(t), Some(load_ms)) = (truth.loading_onset_s, truth.loading_ms) {
         let err_ms = record.loading_onset_s.map(|r| (r - t).abs() * 1e3);
-        let covered = match (err_ms, record.loading_onset_uncertainty_ms) {
-            (Some(e), Some(u)) => Some(e <= u),
+        let covered = match (record.loading_onset_early_s, record.loading_onset_late_s) {
+            (Some(a), Some(b)) => Some(a <= t && t <= b),
             _ => None,
         };
         push(4, err_ms.map(|e| 100.0 * e / load_ms), covered);

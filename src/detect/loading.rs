@@ -23,8 +23,13 @@ pub const MIN_F: f64 = 30.0;
 pub struct LoadingOnset {
     /// Loading onset, video clock, seconds.
     pub onset_s: f64,
-    /// Half-width of the 95 % likelihood interval, ms (at least half a frame period).
+    /// Half-width of the 95 % likelihood interval, ms: the larger of its two sides (at least
+    /// half a frame period).
     pub uncertainty_ms: f64,
+    /// Ends of the 95 % likelihood interval, video clock, seconds (each at least half a frame
+    /// period from the onset). A gentle start leaves the early side the longer.
+    pub early_s: f64,
+    pub late_s: f64,
     /// Drift rate shortly after the onset (a tenth of the way to the release), units per second.
     pub drift_per_s: f64,
     /// F statistic of the hinge against a flat line.
@@ -44,13 +49,21 @@ pub fn detect_loading(t: &[f64], y: &[f64], end: usize, period_s: f64) -> Option
     let hinge = hinge(&tt, &yy)?;
     // The hinge finds the onset in one pass; the power-law profile around it then says how
     // gently the drift may have started, and widens the interval on that side.
-    let (onset, half_width_s) = match power_profile(&tt, &yy, hinge.onset) {
-        Some(p) => (p.onset, (p.onset - p.early).max(p.late - p.onset)),
-        None => (hinge.onset, hinge.half_width),
+    let (onset, early, late) = match power_profile(&tt, &yy, hinge.onset) {
+        Some(p) => (p.onset, p.early, p.late),
+        None => (
+            hinge.onset,
+            hinge.onset - hinge.half_width,
+            hinge.onset + hinge.half_width,
+        ),
     };
+    let early = early.min(onset - 0.5 * period_s);
+    let late = late.max(onset + 0.5 * period_s);
     Some(LoadingOnset {
         onset_s: onset + t0,
-        uncertainty_ms: half_width_s.max(0.5 * period_s) * 1e3,
+        uncertainty_ms: (onset - early).max(late - onset) * 1e3,
+        early_s: early + t0,
+        late_s: late + t0,
         drift_per_s: hinge.drift_per_s,
         f_statistic: hinge.f_statistic,
     })

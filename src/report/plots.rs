@@ -285,10 +285,18 @@ fn motion_panel(
     chart.configure_mesh().light_line_style(WHITE).draw()?;
     chart.draw_series(LineSeries::new(pts, INK.stroke_width(1)))?;
     if let Some(l) = record.loading_onset_s {
+        // The 95 % interval, whose sides differ when the drift may have started gently.
+        let (early, late) = match (record.loading_onset_early_s, record.loading_onset_late_s) {
+            (Some(a), Some(b)) => (a, b),
+            _ => {
+                let half = record.loading_onset_uncertainty_ms.unwrap_or(0.0) * 1e-3;
+                (l - half, l + half)
+            }
+        };
         band(
             &mut chart,
-            l,
-            record.loading_onset_uncertainty_ms.unwrap_or(0.0) * 1e-3,
+            0.5 * (early + late),
+            0.5 * (late - early),
             (lo, hi),
             GREEN,
         )?;
