@@ -455,6 +455,35 @@ fn energy_window(config: &ClickConfig, fs: f64) -> usize {
     ((config.window_ms * 1e-3 * fs).round() as usize).max(8)
 }
 
+/// Factor by which the band search decimates: the largest that keeps at least 3 samples per
+/// period of the band's top (`fs / d >= 3 top`), and 1 (none) when that is under 2. At
+/// 250 kHz with a 20 kHz top this is 4 (62.5 kHz).
+fn detection_decimation(fs: f64, top_hz: f64) -> usize {
+    let d = (fs / (3.0 * top_hz.max(1.0))).floor();
+    if d >= 2.0 && d.is_finite() {
+        d as usize
+    } else {
+        1
+    }
+}
+
+/// `x` through a triangular filter of length 2 d - 1 (two running means of d samples, the
+/// second-order CIC response) and kept every d-th sample: output j weighs samples
+/// d j .. d j + 2 d - 2. The response's first nulls fall on the decimated rate and its
+/// multiples, where the noise that would fold into the band lies; at 250 kHz and d = 4 the
+/// folded noise is about 1 % of the band's own, and the band's top is 2.9 dB down (signal and
+/// noise alike, so the band's SNR is kept).
+fn triangle_decimate(x: &[f64], d: usize) -> Vec<f64> {
+    let norm = 1.0 / (d * d) as f64;
+    let weights: Vec<f64> = (0..2 * d - 1)
+        .map(|k| (k + 1).min(2 * d - 1 - k) as f64 * norm)
+        .collect();
+    x.windows(2 * d - 1)
+        .step_by(d)
+        .map(|w| dot(w, &weights))
+        .collect()
+}
+
 /// Confirms and measures the transients in samples `w0..w1` of `signal`.
 #[allow(clippy::too_many_arguments)] // One call site; a struct would only rename these.
 fn scan_window(
@@ -480,23 +509,37 @@ fn scan_window(
     // this window (robustly: the transient is a small part of it).
     let top = config.detection_top_hz.min(0.45 * fs);
     let band_hz = (top - config.highpass_hz).max(0.05 * fs);
-    let (hp, band_limited) = if top < 0.44 * fs {
+    // Far above the band, the search runs on a decimated signal (the band signal `z` has
+    // `d` times fewer samples, at rate `fs_z`); the high-passed signal at the full rate is
+    // then made only around each transient, for its onset and noise level.
+    let d = detection_decimation(fs, top);
+    let fs_z = fs / d as f64;
+    let (full_hp, band_limited) = if d > 1 {
+        let xd = triangle_decimate(x, d);
+        let hp_z = butterworth_highpass(4, config.highpass_hz, fs_z);
+        let (_, band) = filter_causal_pair(&hp_z, &butterworth_lowpass(4, top, fs_z), &xd);
+        (None, Some(band))
+    } else if top < 0.44 * fs {
         let (hp, band) = filter_causal_pair(sections, &butterworth_lowpass(4, top, fs), x);
-        (hp, Some(band))
+        (Some(hp), Some(band))
     } else {
-        (filter_causal(sections, x), None)
+        (Some(filter_causal(sections, x)), None)
     };
-    let z: &[f64] = band_limited.as_deref().unwrap_or(&hp);
+    let z: &[f64] = match (&band_limited, &full_hp) {
+        (Some(band), _) => band,
+        (None, Some(hp)) => hp,
+        (None, None) => &[],
+    };
     // Noise of the band signal, from the quiet lead-in before the candidate when there is
     // one: its variance, and its autocorrelation, which sets how many independent terms a
     // sum of b squared samples holds (b / sum of squared correlations over all lags).
     let lead = if w0 > 0 {
-        ((WINDOW_PRE_S - 3e-3) * fs) as usize
+        ((WINDOW_PRE_S - 3e-3) * fs_z) as usize
     } else {
         0
     }
     .min(z.len());
-    let quiet = if lead > (5e-3 * fs) as usize {
+    let quiet = if lead > (5e-3 * fs_z) as usize {
         &z[..lead]
     } else {
         z
@@ -508,14 +551,14 @@ fn scan_window(
     // The noise's correlation depends on the band and the recording, not on the window:
     // measured once per signal, on the first quiet lead-in (a window without one measures
     // for itself and is not cached).
-    let has_lead = lead > (5e-3 * fs) as usize;
+    let has_lead = lead > (5e-3 * fs_z) as usize;
     let measure_spread = || {
         // 4096 samples estimate the correlations to about 0.016 each, plenty for a sum of
         // their squares; longer lead-ins (high sample rates) only cost time.
         let quiet = &quiet[quiet.len().saturating_sub(SPREAD_SAMPLES)..];
         let c0: f64 = quiet.iter().map(|v| v * v).sum::<f64>().max(1e-300);
         let max_lag =
-            ((4.0 * fs / band_hz).ceil() as usize).clamp(1, quiet.len().saturating_sub(1).max(1));
+            ((4.0 * fs_z / band_hz).ceil() as usize).clamp(1, quiet.len().saturating_sub(1).max(1));
         let rho2: f64 = (1..=max_lag)
             .map(|j| {
                 let cj = dot(quiet, &quiet[j.min(quiet.len())..]);
@@ -529,25 +572,30 @@ fn scan_window(
         (true, None) => *spread_cache.get_or_insert_with(measure_spread),
         (false, None) => measure_spread(),
     };
-    let b = energy_window(config, fs);
+    let b = energy_window(config, fs_z);
     let dof = ((b as f64 / spread).floor() as usize).clamp(1, b);
     let level = |z: f64| chi2_mean_quantile(dof, z) * band_var * b as f64;
-    let t_high = level(trigger_sigma(config.false_alarm, signal.samples.len(), b));
+    let t_high = level(trigger_sigma(
+        config.false_alarm,
+        signal.samples.len(),
+        energy_window(config, fs),
+    ));
     let hinted: Vec<(usize, usize, f64)> = guided
         .iter()
         .map(|&(a, c, z)| (a, c, level(z).min(t_high)))
         .collect();
     let t_low = hinted.iter().fold(t_high, |m, h| m.min(h.2));
-    let merge = ((config.merge_ms * 1e-3 * fs).round() as usize).max(1);
-    // The lowest level that applies to a window starting at `i` (window-relative).
+    let merge = ((config.merge_ms * 1e-3 * fs_z).round() as usize).max(1);
+    // The lowest level that applies to a window starting at `i` (window-relative, on the
+    // clock of `z`).
     let level_at = |i: usize| {
         hinted
             .iter()
-            .filter(|&&(a, c, _)| (a..c).contains(&(w0 + i)))
+            .filter(|&&(a, c, _)| (a..c).contains(&(w0 + i * d)))
             .fold(t_high, |m, h| m.min(h.2))
     };
 
-    let guard = ((5e-3 * fs) as usize).max(2 * b);
+    let guard = ((5e-3 * fs_z) as usize).max(2 * b);
     // Spans of trailing-energy crossings; `first` is the start of the first window crossing,
     // and whether the span was only taken at the guided threshold.
     let mut spans: Vec<(usize, usize, bool, f64)> = Vec::new();
@@ -594,7 +642,15 @@ fn scan_window(
     // Standard score of a window energy: the Wilson-Hilferty transform inverted.
     let a = 2.0 / (9.0 * dof as f64);
     let score = |e: f64| ((e / (band_var * b as f64)).cbrt() - (1.0 - a)) / a.sqrt();
-    for &(first, last, weak, top_energy) in &spans {
+    // Spans back on the full-rate clock: a sample of `z` sums samples d j .. d j + 2 d - 2.
+    let spans = spans.into_iter().map(|(first, last, weak, e)| {
+        if d > 1 {
+            (first * d, (last * d + 2 * d - 2).min(x.len() - 1), weak, e)
+        } else {
+            (first, last, weak, e)
+        }
+    });
+    for (first, last, weak, top_energy) in spans {
         // Zero-phase high-pass of the transient and 3 ms either side.
         let za = first.saturating_sub(zero_phase_pad);
         let zb = (last + 1 + zero_phase_pad).min(x.len());
@@ -614,12 +670,29 @@ fn scan_window(
         let post = ((0.2e-3 * fs) as usize).max(4);
         // The zero-phase output rises early on a loud click (pre-ringing), so the window runs
         // to just past the peak and the pick may fall anywhere before the peak.
-        let end = (first + post).max(peak_idx + 1).min(last + 1).min(hp.len());
+        let end = (first + post).max(peak_idx + 1).min(last + 1).min(x.len());
         // The first millisecond of the pick window is left out of the pick: the variance of
         // a few samples can be tiny by chance, and k ln var(x[..k]) then wins at the edge.
         let skip = ((1e-3 * fs) as usize).min((end - start) / 2);
+        // The high-passed signal from 20 ms before the pick window (the noise window's reach)
+        // to its end: the whole window's when the search ran at the full rate, else filtered
+        // here from 5 ms earlier still, for the filter to settle.
+        let hp_from = start
+            .saturating_sub((20e-3 * fs) as usize)
+            .max(previous_end)
+            .saturating_sub(if full_hp.is_some() {
+                0
+            } else {
+                (5e-3 * fs) as usize
+            });
+        let hp_piece: std::borrow::Cow<[f64]> = match &full_hp {
+            Some(hp) => std::borrow::Cow::Borrowed(&hp[hp_from..end]),
+            None => std::borrow::Cow::Owned(filter_causal(sections, &x[hp_from..end])),
+        };
+        let hp =
+            |range: std::ops::Range<usize>| &hp_piece[range.start - hp_from..range.end - hp_from];
         let onset =
-            aic_onset_from(&hp[start..end], skip).map_or(first, |k| (start + k).min(peak_idx));
+            aic_onset_from(hp(start..end), skip).map_or(first, |k| (start + k).min(peak_idx));
         let tenth = 0.1 * peak_filtered;
         let tail = (onset.max(za)..=last)
             .rev()
@@ -631,9 +704,10 @@ fn scan_window(
         let noise_end = onset.saturating_sub((0.5e-3 * fs) as usize);
         let noise_start = onset
             .saturating_sub((20e-3 * fs) as usize)
-            .max(previous_end);
+            .max(previous_end)
+            .max(hp_from);
         let noise_rms = if noise_end > noise_start + 32 {
-            let w = &hp[noise_start..noise_end];
+            let w = hp(noise_start..noise_end);
             (w.iter().map(|v| v * v).sum::<f64>() / w.len() as f64).sqrt()
         } else {
             noise_sigma
@@ -748,6 +822,28 @@ pub fn spectral_centroid_hz(x: &[f64], sample_rate_hz: f64, scratch: &mut ClickS
 mod tests {
     use super::*;
     use rand::{Rng, SeedableRng};
+
+    #[test]
+    fn triangle_decimation_weighs_two_d_minus_one_samples_and_keeps_dc() {
+        let d = 4;
+        // An impulse at sample 12 lands in outputs 2 and 3 (samples 8..15 and 12..19).
+        let mut x = vec![0.0; 40];
+        x[12] = 1.0;
+        let y = triangle_decimate(&x, d);
+        // Weights 1 2 3 4 3 2 1 over 16: sample 12 is the fifth of output 2, the first of 3.
+        assert!((y[2] - 3.0 / 16.0).abs() < 1e-15, "{y:?}");
+        assert!((y[3] - 1.0 / 16.0).abs() < 1e-15, "{y:?}");
+        assert!(y
+            .iter()
+            .enumerate()
+            .all(|(j, v)| j == 2 || j == 3 || *v == 0.0));
+        let dc = triangle_decimate(&[0.7; 64], d);
+        assert!(dc.iter().all(|v| (v - 0.7).abs() < 1e-12));
+        assert_eq!(detection_decimation(250_000.0, 20_000.0), 4);
+        assert_eq!(detection_decimation(500_000.0, 20_000.0), 8);
+        assert_eq!(detection_decimation(96_000.0, 20_000.0), 1);
+        assert_eq!(detection_decimation(44_100.0, 19_845.0), 1);
+    }
 
     #[test]
     fn aic_finds_a_variance_step_to_the_sample() {
