@@ -26,7 +26,8 @@ use rustfft::{Fft, FftPlanner};
 use serde::{Deserialize, Serialize};
 
 use super::filter::{
-    butterworth_highpass, butterworth_lowpass, filter_causal, filter_causal_pair, filtfilt,
+    butterworth_highpass, butterworth_lowpass, filter_causal, filter_causal_pair,
+    filter_causal_then, filtfilt,
 };
 use super::MAD_TO_SIGMA;
 use crate::signal::AudioSignal;
@@ -517,7 +518,7 @@ fn scan_window(
     let (full_hp, band_limited) = if d > 1 {
         let xd = triangle_decimate(x, d);
         let hp_z = butterworth_highpass(4, config.highpass_hz, fs_z);
-        let (_, band) = filter_causal_pair(&hp_z, &butterworth_lowpass(4, top, fs_z), &xd);
+        let band = filter_causal_then(&hp_z, &butterworth_lowpass(4, top, fs_z), &xd);
         (None, Some(band))
     } else if top < 0.44 * fs {
         let (hp, band) = filter_causal_pair(sections, &butterworth_lowpass(4, top, fs), x);

@@ -117,7 +117,7 @@ pub fn filter_causal_pair(
     x: &[f64],
 ) -> (Vec<f64>, Vec<f64>) {
     match (first.len(), second.len()) {
-        (2, 2) => run_pair::<2, 2>(first, second, x),
+        (2, 2) => run_pair::<2, 2>(first, second, x, true),
         _ => {
             let a = filter_causal(first, x);
             let b = filter_causal(second, &a);
@@ -126,10 +126,19 @@ pub fn filter_causal_pair(
     }
 }
 
+/// [`filter_causal_pair`] when only the second cascade's output is wanted.
+pub fn filter_causal_then(first: &[Section], second: &[Section], x: &[f64]) -> Vec<f64> {
+    match (first.len(), second.len()) {
+        (2, 2) => run_pair::<2, 2>(first, second, x, false).1,
+        _ => filter_causal(second, &filter_causal(first, x)),
+    }
+}
+
 fn run_pair<const N: usize, const M: usize>(
     first: &[Section],
     second: &[Section],
     x: &[f64],
+    keep_first: bool,
 ) -> (Vec<f64>, Vec<f64>) {
     let Some(&x0) = x.first() else {
         return (Vec::new(), Vec::new());
@@ -152,14 +161,16 @@ fn run_pair<const N: usize, const M: usize>(
         y0 = c1[k].0[0] * y0 + z1[k][0];
     }
     let (mut z2, c2) = load(second, y0);
-    let mut a = Vec::with_capacity(x.len());
+    let mut a = Vec::with_capacity(if keep_first { x.len() } else { 0 });
     let mut b = Vec::with_capacity(x.len());
     for &v in x {
         let mut input = v;
         for k in 0..N {
             input = step(&c1[k], &mut z1[k], input);
         }
-        a.push(input);
+        if keep_first {
+            a.push(input);
+        }
         for k in 0..M {
             input = step(&c2[k], &mut z2[k], input);
         }
@@ -237,6 +248,7 @@ mod tests {
         let b_ref = filter_causal(&lp, &a_ref);
         assert_eq!(a, a_ref);
         assert_eq!(b, b_ref);
+        assert_eq!(filter_causal_then(&hp, &lp, &x), b_ref);
     }
 
     #[test]

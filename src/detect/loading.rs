@@ -256,15 +256,16 @@ impl Bins {
         // Over tens of thousands of frames the residual rises so steeply with the exponent
         // that sixteenths leave an interpolation misfit larger than the interval's own limit.
         if frames > FINE_POWER_FRAMES {
-            self.profile_in::<{ 4 * (POWER_STEPS - 1) + 1 }>(range, 6)
+            self.profile_in::<{ 4 * (POWER_STEPS - 1) + 1 }>(range)
         } else {
-            self.profile_in::<POWER_STEPS>(range, 4)
+            self.profile_in::<POWER_STEPS>(range)
         }
     }
 
-    /// [`Bins::profile`] with the exponent in `STEPS - 1` steps from 1 to 2, the step being
-    /// `roots` square roots of h.
-    fn profile_in<const STEPS: usize>(&self, range: (f64, f64), roots: u32) -> Vec<Option<f64>> {
+    /// [`Bins::profile`] with the exponent in `STEPS - 1` steps from 1 to 2 (a power of two,
+    /// so that each step, h^(1 / (STEPS - 1)), is a run of square roots).
+    fn profile_in<const STEPS: usize>(&self, range: (f64, f64)) -> Vec<Option<f64>> {
+        let roots = (STEPS - 1).trailing_zeros();
         let (bt, by, bw) = (&self.t, &self.y, &self.w);
         let nb = bt.len();
         let sw: f64 = bw.iter().sum();
