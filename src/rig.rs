@@ -67,6 +67,10 @@ pub struct RigProfile {
     /// stretch the video's latch release maps to; the stretch around the strongest click).
     /// The click trigger level of each search follows from it and the length searched.
     pub click_false_alarm: f64,
+    /// Chance that noise alone raises a false click in the core of the expected stretch: the
+    /// part within three standard uncertainties of the video release and
+    /// `sync_tolerance_min_ms` of where the clock relation puts the click.
+    pub click_core_false_alarm: f64,
     /// Length of the click detector's short-term energy window, ms.
     pub click_window_ms: f64,
     /// A second click is sought at the guided threshold this far either side of the strongest
@@ -107,6 +111,7 @@ impl Default for RigProfile {
             efficiency_model: EfficiencyModel::Energy,
             highpass_hz: 1000.0,
             click_false_alarm: 0.005,
+            click_core_false_alarm: 0.05,
             click_window_ms: 0.5,
             double_click_window_ms: 30.0,
             min_click_centroid_hz: 2000.0,
@@ -163,6 +168,16 @@ impl RigProfile {
                 Err(Error::config(field, format!("{v} must be greater than 0")))
             }
         }
+        fn chance(field: &str, v: f64) -> Result<()> {
+            positive(field, v)?;
+            if v > 0.5 {
+                return Err(Error::config(
+                    field,
+                    "must be at most 0.5 (a chance per search)",
+                ));
+            }
+            Ok(())
+        }
         if let Some(fps) = self.fps {
             positive("fps", fps)?;
         }
@@ -201,13 +216,8 @@ impl RigProfile {
         }
         finite("low_snr_db", self.low_snr_db)?;
         positive("highpass_hz", self.highpass_hz)?;
-        positive("click_false_alarm", self.click_false_alarm)?;
-        if self.click_false_alarm > 0.5 {
-            return Err(Error::config(
-                "click_false_alarm",
-                "must be at most 0.5 (a chance per search)",
-            ));
-        }
+        chance("click_false_alarm", self.click_false_alarm)?;
+        chance("click_core_false_alarm", self.click_core_false_alarm)?;
         positive("click_window_ms", self.click_window_ms)?;
         if self.click_window_ms > 50.0 {
             return Err(Error::config(
@@ -289,6 +299,16 @@ mod tests {
     fn negative_fps_is_rejected_with_field_name() {
         let err = RigProfile::from_json(r#"{"fps": -5}"#).unwrap_err();
         assert!(err.to_string().contains("fps"), "{err}");
+    }
+
+    #[test]
+    fn a_chance_outside_0_to_0_5_is_rejected_with_field_name() {
+        for (field, v) in [("click_core_false_alarm", 0.7), ("click_false_alarm", 0.0)] {
+            let err = RigProfile::from_json(&format!(r#"{{"{field}": {v}}}"#)).unwrap_err();
+            assert!(err.to_string().contains(field), "{err}");
+        }
+        let rig = RigProfile::from_json(r#"{"click_core_false_alarm": 0.5}"#).unwrap();
+        assert_eq!(rig.click_core_false_alarm, 0.5);
     }
 
     #[test]

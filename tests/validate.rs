@@ -34,30 +34,19 @@ fn flag<'a>(r: &'a ValidationReport, name: &str) -> &'a latchtime::validate::Fla
     r.flags.iter().find(|f| f.flag == name).unwrap()
 }
 
-/// Per-rig guard levels where a target is not met there yet (see each assertion).
-struct Guards {
-    click_miss_share: f64,
-    no_click_precision: f64,
-}
-
-/// The targets themselves.
-const TARGETS: Guards = Guards {
-    click_miss_share: 0.01,
-    no_click_precision: 0.97,
-};
-
-fn check(r: &ValidationReport, g: Guards) {
+fn check(r: &ValidationReport) {
     let at = format!("{} Hz / {} fps", r.config.sample_rate_hz, r.config.fps);
     assert_eq!(r.errors, 0, "{at}");
     // Target: click onset median <= 20 us, p95 <= 100 us at SNR >= 10 dB.
     let click = event(r, "click_onset_s", "all");
     assert!(click.median_abs_error.unwrap() <= 20.0, "{at}: {click:?}");
     assert!(click.p95_abs_error.unwrap() <= 100.0, "{at}: {click:?}");
-    // Target: misses <= 1 %. Met at 250 kHz; at 48 and 96 kHz 5 of 265 clicks are missed
-    // (1.9 %), all at 10-12 dB where a 0.5 ms window holds too little click energy to stand
-    // out from noise; guarded there at 2.5 %. Nothing at 13 dB or more may be missed.
+    // Target: misses <= 1 % (1 / 0 / 0 of 265 on this seed). On 1800 trials 48 kHz misses
+    // 1.3 % (README), so this seed is a guard, not the estimate. The core of the expected
+    // stretch is what brings 48 and 96 kHz here (5 and 3 misses without it). Nothing at
+    // 13 dB or more may be missed.
     assert!(
-        (click.misses as f64) <= g.click_miss_share * click.n as f64,
+        (click.misses as f64) <= 0.01 * click.n as f64,
         "{at}: {click:?}"
     );
     for band in ["13-20 dB", "20-30 dB", ">= 30 dB"] {
@@ -124,8 +113,9 @@ fn check(r: &ValidationReport, g: Guards) {
     // Target: double_click and no_click precision and recall >= 0.97.
     // double_click counts every second click, and those the synthesiser makes 3-8 dB weaker
     // than a first click near the 10 dB floor cannot be heard (recall 0.73-1.0 measured);
-    // leaving out second clicks below 10 dB, recall is 0.967-1.0 (one trial short at 96 kHz,
-    // guarded at 0.95). Precision 1.0 at all three rigs.
+    // leaving out second clicks below 10 dB, recall is 0.967-1.0 (29 of 30 at 48 kHz, a
+    // second click at 11.4 dB; guarded at 0.95; 0.98 on 1800 trials). Precision 1.0 at all
+    // three rigs.
     let double = flag(r, "double_click");
     assert!(double.precision.unwrap() >= 0.97, "{at}: {double:?}");
     let audible = flag(r, latchtime::validate::DOUBLE_AUDIBLE_ROW);
@@ -134,38 +124,26 @@ fn check(r: &ValidationReport, g: Guards) {
         "{at}: {audible:?}"
     );
     // no_click: every missed click is a false no_click, so its precision follows the misses
-    // (0.87 measured at 48 and 96 kHz, guarded at 0.85; 1.0 at 250 kHz). Recall 0.97-1.0: one
-    // empty trial in 35 at 96 kHz takes a false click from noise at the 1 % false-alarm chance.
+    // (0.971 / 1.0 / 1.0 measured; 0.92 at 48 kHz on 1800 trials). Recall 0.97-1.0: one empty
+    // trial in 35 at 48 and 96 kHz takes a false click from noise.
     let none = flag(r, "no_click");
     assert!(
-        none.precision.unwrap() >= g.no_click_precision && none.recall.unwrap() >= 0.95,
+        none.precision.unwrap() >= 0.97 && none.recall.unwrap() >= 0.95,
         "{at}: {none:?}"
     );
 }
 
 #[test]
 fn validation_at_48_khz_and_500_fps_meets_the_guarded_targets() {
-    check(
-        &run(48_000, 500.0),
-        Guards {
-            click_miss_share: 0.025,
-            no_click_precision: 0.85,
-        },
-    );
+    check(&run(48_000, 500.0));
 }
 
 #[test]
 fn validation_at_96_khz_and_1000_fps_meets_the_guarded_targets() {
-    check(
-        &run(96_000, 1000.0),
-        Guards {
-            click_miss_share: 0.025,
-            no_click_precision: 0.85,
-        },
-    );
+    check(&run(96_000, 1000.0));
 }
 
 #[test]
 fn validation_at_250_khz_and_4000_fps_meets_the_guarded_targets() {
-    check(&run(250_000, 4000.0), TARGETS);
+    check(&run(250_000, 4000.0));
 }

@@ -932,6 +932,29 @@ mod tests {
     }
 
     #[test]
+    fn false_clicks_in_a_short_hint_at_a_high_chance_match_it() {
+        // The core of an expected stretch is short (1.6 ms here, 77 samples at 48 kHz) and
+        // searched at a 5 % chance, where the Bonferroni count of about 10 effective windows
+        // is least sure. Of 400 noise recordings about 20 should take a false click there
+        // (27 here; 6.4 % over 4000). The bounds fail a level off by a factor of 2.5.
+        let config = ClickConfig::default();
+        let mut scratch = ClickScratch::default();
+        let hint = [SearchHint {
+            start_s: 0.2,
+            end_s: 0.2016,
+            false_alarm: 0.05,
+        }];
+        let n = 400;
+        let mut hit = 0;
+        for seed in 0..n {
+            let signal = noise_signal(48_000.0, 0.3, 0.01, 1000 + seed);
+            let scan = scan_transients(&signal, &config, &mut scratch, &hint);
+            hit += usize::from(scan.transients.iter().any(|t| t.guided));
+        }
+        assert!((10..=50).contains(&hit), "short-hint false clicks {hit}");
+    }
+
+    #[test]
     fn a_weak_click_is_found_inside_its_hint_and_not_without_it() {
         // A 7 kHz ring (0.3 ms decay, peak 3.4 times the noise RMS) whose 0.5 ms energy lies
         // between the hinted and the whole-recording trigger levels for this noise seed (over

@@ -198,6 +198,55 @@ mod tests {
     }
 
     #[test]
+    fn the_core_of_the_expected_stretch_is_the_release_uncertainty_and_the_least_tolerance() {
+        // 500 fps: the sync tolerance is 2 frames (4 ms); the core is 0.25 ms plus three
+        // release uncertainties (3 x 0.1 ms) either side, and both end one energy window
+        // (0.5 ms) early on the left, where the window trailing the onset starts.
+        let rig = RigProfile {
+            video_offset_s: 0.002,
+            ..RigProfile::default()
+        };
+        let motion = release::MotionEvents {
+            release_s: 0.1,
+            pre_release_index: 49,
+            motion_peak_s: 0.105,
+            motion_peak_index: 52,
+            motion_peak_value: 1.0,
+            direction: 1.0,
+            peak_rate_per_s: 100.0,
+            jump: 1.0,
+            overshoot: false,
+            release_sd_s: 0.1e-3,
+            motion_peak_sd_s: 0.1e-3,
+        };
+        let video = VideoEvents {
+            clock: clock::FrameClock {
+                time_s: (0..100).map(|k| k as f64 * 2e-3).collect(),
+                period_s: 2e-3,
+                missing_frames: 0,
+                uniform: true,
+                max_residual_s: 0.0,
+            },
+            noise_sigma: 0.01,
+            motion: Some(motion),
+            loading: None,
+            oscillation: None,
+        };
+        let e = expected_click(&video, &rig).unwrap();
+        let at = 0.102;
+        let close = |a: f64, b: f64| (a - b).abs() < 1e-12;
+        assert!(close(e.stretch.start_s, at - 4.3e-3 - 0.5e-3), "{e:?}");
+        assert!(close(e.stretch.end_s, at + 4.3e-3), "{e:?}");
+        assert!(close(e.core.start_s, at - 0.55e-3 - 0.5e-3), "{e:?}");
+        assert!(close(e.core.end_s, at + 0.55e-3), "{e:?}");
+        assert_eq!(e.stretch.false_alarm, rig.click_false_alarm);
+        assert_eq!(e.core.false_alarm, rig.click_core_false_alarm);
+        let mut still = video.clone();
+        still.motion = None;
+        assert!(expected_click(&still, &rig).is_none());
+    }
+
+    #[test]
     fn parabola_vertex_recovers_a_known_parabola() {
         let f = |x: f64| -2.0 * (x - 0.3) * (x - 0.3) + 5.0;
         let (xv, yv) = parabola_vertex((-1.0, f(-1.0)), (0.0, f(0.0)), (1.0, f(1.0))).unwrap();
@@ -276,13 +325,13 @@ pub fn detect_audio(
     signal: &AudioSignal,
     rig: &RigProfile,
     scratch: &mut click::ClickScratch,
-    expected: Option<click::SearchHint>,
+    expected: Option<ExpectedClick>,
 ) -> AudioEvents {
     let config = click::ClickConfig::from(rig);
     let around_s = rig.double_click_window_ms * 1e-3;
     let second_alarm = rig.click_false_alarm * DOUBLE_CLICK_FALSE_ALARM_SHARE;
-    let mut hints: Vec<click::SearchHint> = expected.into_iter().collect();
-    if let (Some(e), true) = (expected, around_s > 0.0) {
+    let mut hints: Vec<click::SearchHint> = expected.iter().flat_map(|e| e.hints()).collect();
+    if let (Some(e), true) = (expected.map(|e| e.stretch), around_s > 0.0) {
         // Where the click should be, and the second-click stretch around it, in one pass.
         hints.push(click::SearchHint {
             start_s: e.start_s - around_s,
@@ -292,8 +341,8 @@ pub fn detect_audio(
     }
     let mut scan = click::scan_transients(signal, &config, scratch, &hints);
     if let Some(main) = strongest_click(&scan.transients).map(|i| scan.transients[i].clone()) {
-        let in_expected =
-            expected.is_some_and(|e| main.onset_s >= e.start_s && main.onset_s <= e.end_s);
+        let in_expected = expected
+            .is_some_and(|e| main.onset_s >= e.stretch.start_s && main.onset_s <= e.stretch.end_s);
         if around_s > 0.0 && !in_expected {
             // The click is not where the video said: search around it for a second one.
             let region = click::SearchHint {
@@ -303,7 +352,7 @@ pub fn detect_audio(
             };
             let mut second = vec![region];
             if main.guided {
-                second.extend(expected);
+                second.extend(expected.iter().flat_map(|e| e.hints()));
             }
             scan.rescan(signal, &config, scratch, &second, region);
             // The second search measures its own noise on its own stretch; a main click just
@@ -347,20 +396,41 @@ fn strongest_click(transients: &[click::Transient]) -> Option<usize> {
         .map(|(i, _)| i)
 }
 
-/// Where on the audio clock the click of the video's latch release should start: the clock
-/// relation applied to the video release, widened by the sync tolerance, three standard
-/// uncertainties of the video release and the energy window. `None` without a release.
-pub fn expected_click(video: &VideoEvents, rig: &RigProfile) -> Option<click::SearchHint> {
+/// Where on the audio clock the click of the video's latch release should be heard.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ExpectedClick {
+    /// The clock relation applied to the video release, widened by the sync tolerance, three
+    /// standard uncertainties of the video release and the energy window; searched at
+    /// `click_false_alarm`.
+    pub stretch: click::SearchHint,
+    /// The part of `stretch` where the clocks agree as well as they can be measured: three
+    /// standard uncertainties of the video release and `sync_tolerance_min_ms` either side,
+    /// plus the energy window; searched at `click_core_false_alarm`.
+    pub core: click::SearchHint,
+}
+
+impl ExpectedClick {
+    /// Both stretches, as searches.
+    pub fn hints(&self) -> [click::SearchHint; 2] {
+        [self.stretch, self.core]
+    }
+}
+
+/// Where the click of the video's latch release should be heard. `None` without a release.
+pub fn expected_click(video: &VideoEvents, rig: &RigProfile) -> Option<ExpectedClick> {
     let m = video.motion.as_ref()?;
-    let tolerance_s =
-        (rig.sync_tolerance_frames * video.clock.period_s).max(rig.sync_tolerance_min_ms * 1e-3);
-    let half_s = tolerance_s + 3.0 * m.release_sd_s;
+    let min_s = rig.sync_tolerance_min_ms * 1e-3;
+    let tolerance_s = (rig.sync_tolerance_frames * video.clock.period_s).max(min_s);
     let at_s = rig.audio_time_s(m.release_s);
-    Some(click::SearchHint {
-        start_s: at_s - half_s - rig.click_window_ms * 1e-3,
+    let window_s = rig.click_window_ms * 1e-3;
+    let hint = |half_s: f64, false_alarm: f64| click::SearchHint {
+        start_s: at_s - half_s - window_s,
         end_s: at_s + half_s,
-        false_alarm: rig.click_false_alarm,
-    })
+        false_alarm,
+    };
+    let stretch = hint(tolerance_s + 3.0 * m.release_sd_s, rig.click_false_alarm);
+    let core = hint(min_s + 3.0 * m.release_sd_s, rig.click_core_false_alarm);
+    Some(ExpectedClick { stretch, core })
 }
 
 /// Runs the video detectors.
