@@ -61,6 +61,8 @@ impl Flag {
 /// Measures of the main click.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct ClickMeasures {
+    /// Standard uncertainty of `click_onset_s`, ms.
+    pub onset_sd_ms: f64,
     pub peak_dbfs: f64,
     pub peak_spl_db: Option<f64>,
     pub duration_ms: f64,
@@ -118,6 +120,7 @@ pub struct TrialRecord {
     pub latch_release_s: Option<f64>,
     pub latch_release_sd_ms: Option<f64>,
     pub latch_release_video_s: Option<f64>,
+    pub latch_release_video_sd_ms: Option<f64>,
     pub motion_peak_s: Option<f64>,
     pub motion_peak_sd_ms: Option<f64>,
     pub loading_ms: Option<f64>,
@@ -158,6 +161,7 @@ impl TrialRecord {
             latch_release_s: None,
             latch_release_sd_ms: None,
             latch_release_video_s: None,
+            latch_release_video_sd_ms: None,
             motion_peak_s: None,
             motion_peak_sd_ms: None,
             loading_ms: None,
@@ -233,6 +237,7 @@ pub fn measure(
                 }
                 let peak_fs = 10f64.powf(main.peak_dbfs / 20.0);
                 record.click = Some(ClickMeasures {
+                    onset_sd_ms: main.onset_sd_s * 1e3,
                     peak_dbfs: main.peak_dbfs,
                     // SPL re 20 uPa (ISO 1683) of the peak pressure.
                     peak_spl_db: rig.pressure_pa(peak_fs).map(|p| 20.0 * (p / 20e-6).log10()),
@@ -265,6 +270,7 @@ pub fn measure(
                 record.latch_release_video_s = Some(m.release_s);
                 record.latch_release_s = Some(m.release_s);
                 record.latch_release_sd_ms = Some(m.release_sd_s * 1e3);
+                record.latch_release_video_sd_ms = Some(m.release_sd_s * 1e3);
                 record.motion_peak_s = Some(m.motion_peak_s);
                 record.motion_peak_sd_ms = Some(m.motion_peak_sd_s * 1e3);
                 if let Some(click_s) = record.click_onset_s {
@@ -287,9 +293,8 @@ pub fn measure(
                         // The clocks agree: the click times the release far more finely than
                         // the frames do.
                         record.latch_release_s = Some(click_s - delay_s - rig.video_offset_s);
-                        // The AIC pick is good to a sample or two.
-                        let sample_s = audio.map_or(0.0, |(_, fs)| 1.0 / fs);
-                        record.latch_release_sd_ms = Some(1.5 * sample_s * 1e3);
+                        // As good as the AIC pick of the click onset.
+                        record.latch_release_sd_ms = record.click.as_ref().map(|c| c.onset_sd_ms);
                     }
                 }
             }

@@ -443,6 +443,12 @@ fn score_trial(
     let abs_within = |r: Option<f64>, t: f64, scale: f64, limit: f64| {
         r.map(|r| (r - t).abs() * scale).filter(|e| *e <= limit)
     };
+    // Whether the truth lies within 1.96 standard uncertainties of the value.
+    let within = |r: Option<f64>, sd: Option<f64>, t: f64| match (r, sd) {
+        (Some(r), Some(sd)) => Some((r - t).abs() <= 1.96 * sd),
+        _ => None,
+    };
+    let ms = |sd: Option<f64>| sd.map(|v| v * 1e-3);
     let mut click_missed = false;
     if let Some(t) = truth.click_onset_s {
         // A pick more than 1 ms away found something else: a miss.
@@ -453,19 +459,27 @@ fn score_trial(
     let refined = record.sync.is_some() && !record.flags.contains(&Flag::SyncMismatch);
     if let Some(t) = truth.latch_release_s {
         if refined && truth.kind != TrialKind::OutOfSync {
-            push(1, abs_within(record.latch_release_s, t, 1e3, 1.0), None);
+            push(
+                1,
+                abs_within(record.latch_release_s, t, 1e3, 1.0),
+                within(record.latch_release_s, ms(record.latch_release_sd_ms), t),
+            );
         }
         push(
             2,
             abs_within(record.latch_release_video_s, t, 1.0 / period_s, 10.0),
-            None,
+            within(
+                record.latch_release_video_s,
+                ms(record.latch_release_video_sd_ms),
+                t,
+            ),
         );
     }
     if let Some(t) = truth.motion_peak_s {
         push(
             3,
             abs_within(record.motion_peak_s, t, 1.0 / period_s, 10.0),
-            None,
+            within(record.motion_peak_s, ms(record.motion_peak_sd_ms), t),
         );
     }
     if let (Some(t), Some(load_ms)) = (truth.loading_onset_s, truth.loading_ms) {
@@ -480,21 +494,36 @@ fn score_trial(
         (Some(r), Some(t)) if t != 0.0 => Some(100.0 * ((r - t) / t).abs()),
         _ => None,
     };
-    if truth.loading_ms.is_some() {
-        push(5, relative(record.loading_ms, truth.loading_ms), None);
+    if let Some(t) = truth.loading_ms {
+        push(
+            5,
+            relative(record.loading_ms, Some(t)),
+            within(record.loading_ms, record.loading_ms_sd, t),
+        );
     }
-    if truth.release_ms.is_some() {
-        push(6, relative(record.release_ms, truth.release_ms), None);
+    if let Some(t) = truth.release_ms {
+        push(
+            6,
+            relative(record.release_ms, Some(t)),
+            within(record.release_ms, record.release_ms_sd, t),
+        );
     }
-    if truth.amplification.is_some() {
-        push(7, relative(record.amplification, truth.amplification), None);
+    if let Some(t) = truth.amplification {
+        push(
+            7,
+            relative(record.amplification, Some(t)),
+            within(record.amplification, record.amplification_sd, t),
+        );
     }
     if let Some(o) = &truth.oscillation {
-        let got = record
-            .oscillation
-            .as_ref()
-            .map(|r| (r.amplitude_ratio - o.amplitude_ratio).abs());
-        push(8, got, None);
+        let r = record.oscillation.as_ref();
+        let got = r.map(|r| (r.amplitude_ratio - o.amplitude_ratio).abs());
+        let covered = within(
+            r.map(|r| r.amplitude_ratio),
+            r.and_then(|r| r.amplitude_ratio_sd),
+            o.amplitude_ratio,
+        );
+        push(8, got, covered);
     }
     click_missed
 }

@@ -88,6 +88,20 @@ fn check(r: &ValidationReport) {
             "{at}: {e:?}"
         );
     }
+    // Reported uncertainties: how often value +- 1.96 sd covers the truth. Not a target of
+    // the issue (only the loading interval is); guarded at today's level less a margin, so
+    // that they do not slide back. Measured 0.85 / 0.93 / 0.93 for the video release (0.70 /
+    // 0.73 / 0.58 over 1800 trials when the release profile held the shape fixed and was
+    // interpolated between frames), 0.96 / 0.97 / 0.91 audio-refined, 0.94 / 0.94 / 0.87
+    // for release_ms.
+    for (name, at_least) in [
+        ("latch_release_video_s", 0.80),
+        ("latch_release_s (audio-refined)", 0.86),
+        ("release_ms", 0.83),
+    ] {
+        let coverage = event(r, name, "all").coverage_95.unwrap();
+        assert!(coverage >= at_least, "{at}: {name} coverage {coverage}");
+    }
     // Target: amplitude ratio median absolute error <= 0.05.
     assert!(
         event(r, "amplitude_ratio", "all").median_abs_error.unwrap() <= 0.05,

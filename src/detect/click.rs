@@ -110,6 +110,8 @@ pub struct Transient {
     /// Largest standard score of its short-term energy against the noise floor (the scale of
     /// the trigger levels, [`trigger_sigma`]).
     pub score_sigma: f64,
+    /// Standard uncertainty of `onset_s`, seconds: from the AIC's likelihood interval.
+    pub onset_sd_s: f64,
 }
 
 /// All transients of one signal, ascending in time, and the noise floor used.
@@ -692,8 +694,8 @@ fn scan_window(
         };
         let hp =
             |range: std::ops::Range<usize>| &hp_piece[range.start - hp_from..range.end - hp_from];
-        let onset =
-            aic_onset_from(hp(start..end), skip).map_or(first, |k| (start + k).min(peak_idx));
+        let picked = aic_onset_interval(hp(start..end), skip);
+        let onset = picked.map_or(first, |(k, _, _)| (start + k).min(peak_idx));
         let tenth = 0.1 * peak_filtered;
         let tail = (onset.max(za)..=last)
             .rev()
@@ -713,6 +715,19 @@ fn scan_window(
         } else {
             noise_sigma
         };
+        // Standard uncertainty of the onset (without a pick, the span's first crossing is good
+        // to a window), combining:
+        // - the AIC's 95 % interval half-width over 1.96: on a weak click the AIC is flat and
+        //   ragged before the onset;
+        // - 1.5 samples, for the pick on a sampled, filtered onset;
+        // - the start a click's rise loses in noise: an envelope rising linearly from onset to
+        //   peak stays under the noise RMS for the rise time times noise over peak.
+        let rise_s = (peak_idx - onset.min(peak_idx)) as f64 / fs;
+        let lost_s = rise_s * (noise_rms / peak_filtered.max(1e-15)).min(1.0);
+        let onset_sd_s = picked.map_or(b as f64 * d as f64, |(_, lo, hi)| {
+            (0.5 * (hi - lo) as f64 / 1.96).hypot(1.5)
+        }) / fs;
+        let onset_sd_s = onset_sd_s.hypot(lost_s);
         let centroid_len = (tail - onset + 1).max((0.5e-3 * fs) as usize);
         let centroid_end = (onset + centroid_len).min(x.len());
         let centroid_hz = spectral_centroid_hz(&x[onset..centroid_end], fs, scratch);
@@ -722,13 +737,14 @@ fn scan_window(
             peak_dbfs: 20.0 * raw_peak.max(1e-12).log10(),
             peak_filtered,
             duration_ms: (tail - onset) as f64 / fs * 1e3,
-            rise_ms: (peak_idx - onset.min(peak_idx)) as f64 / fs * 1e3,
+            rise_ms: rise_s * 1e3,
             centroid_hz,
             snr_db: 20.0 * (peak_filtered / noise_rms.max(1e-15)).log10(),
             clipped: clipped_samples >= 2,
             is_click: centroid_hz >= config.min_centroid_hz,
             guided: weak,
             score_sigma: score(top_energy),
+            onset_sd_s,
         });
         previous_end = last + 1;
     }
@@ -758,6 +774,18 @@ pub fn aic_onset(x: &[f64]) -> Option<usize> {
 /// [`aic_onset`] restricted to picks at index `k_min` or later (the AIC itself still uses the
 /// whole window).
 pub fn aic_onset_from(x: &[f64], k_min: usize) -> Option<usize> {
+    aic_onset_interval(x, k_min).map(|(k, _, _)| k)
+}
+
+/// Rise of the AIC over its least that bounds the onset's 95 % interval: the AIC of this
+/// two-variance model is -2 ln L up to a constant, so this is the chi-square (1 degree of
+/// freedom) 95 % point of a likelihood-ratio interval.
+const AIC_INTERVAL_RISE: f64 = 3.84;
+
+/// [`aic_onset_from`] with the first and last index whose AIC is within
+/// [`AIC_INTERVAL_RISE`] of the least: (pick, first, last). On a weak click the AIC is
+/// flat and ragged before the onset, and the interval spreads over every dip that comes close.
+pub fn aic_onset_interval(x: &[f64], k_min: usize) -> Option<(usize, usize, usize)> {
     let n = x.len();
     if n < 8 {
         return None;
@@ -778,13 +806,16 @@ pub fn aic_onset_from(x: &[f64], k_min: usize) -> Option<usize> {
         let mean = (prefix[b] - prefix[a]) / m;
         ((prefix_sq[b] - prefix_sq[a]) / m - mean * mean).max(1e-300)
     };
-    (k_min.max(2)..n - 1)
+    let aic: Vec<(usize, f64)> = (k_min.max(2)..n - 1)
         .map(|k| {
             let aic = k as f64 * var(0, k).ln() + (n - k - 1) as f64 * var(k, n).ln();
             (k, aic)
         })
-        .min_by(|a, b| a.1.total_cmp(&b.1))
-        .map(|(k, _)| k)
+        .collect();
+    let &(k, least) = aic.iter().min_by(|a, b| a.1.total_cmp(&b.1))?;
+    let near = aic.iter().filter(|(_, v)| *v <= least + AIC_INTERVAL_RISE);
+    let (first, last) = near.fold((k, k), |(a, b), &(j, _)| (a.min(j), b.max(j)));
+    Some((k, first, last))
 }
 
 /// Power-weighted mean frequency of `x` after removing its least-squares line and applying a
@@ -984,6 +1015,26 @@ mod tests {
         let click = &hinted.transients[0];
         assert!(click.guided && click.is_click);
         assert!((click.onset_s - 0.25).abs() < 0.1e-3, "{}", click.onset_s);
+    }
+
+    #[test]
+    fn aic_interval_is_narrow_on_a_clear_onset_and_wide_on_a_faint_one() {
+        // Unit noise, then noise of sd 10 (clear) or 1.3 (faint) from sample 300 on.
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        let base: Vec<f64> = (0..600).map(|_| rng.gen::<f64>() - 0.5).collect();
+        let stepped = |gain: f64| -> Vec<f64> {
+            base.iter()
+                .enumerate()
+                .map(|(i, v)| if i >= 300 { gain * v } else { *v })
+                .collect()
+        };
+        let (k, lo, hi) = aic_onset_interval(&stepped(10.0), 0).unwrap();
+        assert!(lo <= k && k <= hi, "{lo} {k} {hi}");
+        assert!((k as i64 - 300).abs() <= 2 && hi - lo <= 6, "{lo} {k} {hi}");
+        let (k, lo, hi) = aic_onset_interval(&stepped(1.3), 0).unwrap();
+        assert!(lo <= k && k <= hi && hi - lo >= 20, "{lo} {k} {hi}");
+        assert!(lo <= 300 && 300 <= hi, "{lo} {k} {hi}");
+        assert_eq!(aic_onset_from(&stepped(1.3), 0), Some(k));
     }
 
     #[test]

@@ -103,7 +103,8 @@ fn release_shape(h: f64, h_mid: f64, zeta: f64) -> f64 {
 /// off, so more frames can be used. The damping ratio of the shape is chosen from
 /// [`RELEASE_ZETAS`] by the least residual; tau runs over the frames of the window, and the
 /// best is refined between frames by golden-section search. Returns tau and its standard
-/// uncertainty (the 95 % likelihood interval's half-width over 1.96).
+/// uncertainty: the half-width over 1.96 of the 95 % profile-likelihood interval of tau, with
+/// the shape and its time scale profiled out.
 fn spring_onset(
     t: &[f64],
     y: &[f64],
@@ -119,8 +120,7 @@ fn spring_onset(
     let t0 = tw[0];
     let syy: f64 = yw.iter().map(|v| v * v).sum();
     // Residual sum of squares of the linear fit for a given tau and shape: syy - c'v.
-    let sse_at = |tau: f64, zeta: f64| -> Option<f64> {
-        let h_mid = t_mid_s - tau;
+    let sse_h = |tau: f64, h_mid: f64, zeta: f64| -> Option<f64> {
         if h_mid <= 0.0 {
             return None;
         }
@@ -139,6 +139,7 @@ fn spring_onset(
         let c = super::solve_linear(m, v)?;
         Some((syy - c[0] * v[0] - c[1] * v[1] - c[2] * v[2]).max(0.0))
     };
+    let sse_at = |tau: f64, zeta: f64| sse_h(tau, t_mid_s - tau, zeta);
     let grid = |zeta: f64| -> Vec<(usize, f64)> {
         (2..tw.len() - 2)
             .filter(|&k| tw[k] < t_mid_s)
@@ -161,20 +162,83 @@ fn spring_onset(
         let tau = golden_min(lo, hi, sse);
         Some((k, tau, sse(tau)))
     };
-    let (candidates, (k, tau, _)) = RELEASE_ZETAS
+    let (_, tau, _) = RELEASE_ZETAS
         .iter()
-        .filter_map(|&z| {
-            let g = grid(z);
-            let best = refine(z, &g)?;
-            Some((g, best))
-        })
-        .min_by(|a, b| a.1 .2.total_cmp(&b.1 .2))?;
-    let best = candidates.iter().map(|c| c.1).fold(f64::INFINITY, f64::min);
-    let around = |k: usize| candidates.iter().find(|c| c.0 == k).map(|c| c.1);
-    let profile: Vec<Option<f64>> = (0..tw.len()).map(around).collect();
+        .filter_map(|&z| refine(z, &grid(z)))
+        .min_by(|a, b| a.2.total_cmp(&b.2))?;
+    // The profile residual at tau, with the shape and the time scale h nuisance parameters:
+    // the least over the shapes and over h. The measured peak rate fixes h = t_mid - tau for
+    // the estimate, but a peak rate a little off trades against tau (and the shape against
+    // h), and holding them fixed made the interval too narrow: it covered 0.58-0.73 of true
+    // releases in `validate`. The least over h comes from a parabola through three time
+    // scales 15 % apart.
+    let profile = |tau: f64| {
+        let h0 = t_mid_s - tau;
+        RELEASE_ZETAS
+            .iter()
+            .map(|&z| {
+                let f = |h: f64| sse_h(tau, h, z).unwrap_or(f64::INFINITY);
+                let (lo, mid, hi) = (f(0.85 * h0), f(h0), f(1.15 * h0));
+                let curve = lo + hi - 2.0 * mid;
+                let mut least = lo.min(mid).min(hi);
+                if curve > 0.0 && curve.is_finite() {
+                    let x = (0.5 * (lo - hi) / curve).clamp(-2.0, 2.0);
+                    least = least.min(f(h0 * (1.0 + 0.15 * x)));
+                }
+                least
+            })
+            .fold(f64::INFINITY, f64::min)
+    };
+    let best = profile(tau);
     let limit = best.max(1e-300) * (3.84 / tw.len() as f64).exp();
-    let half_width = super::profile_half_width(tw, &profile, k, limit);
-    Some((tau, half_width / 1.96))
+    let period = (tw[tw.len() - 1] - t0) / (tw.len() - 1) as f64;
+    let (lo, hi) = continuous_interval(
+        &profile,
+        tau,
+        0.05 * period,
+        0.5 * (tw[tw.len() - 1] - t0),
+        limit,
+    );
+    Some((tau, 0.5 * (hi - lo) / 1.96))
+}
+
+/// Ends of the interval about `x0` where the profile `f` stays at or under `limit`: on each
+/// side, steps doubling from `step` until `f` exceeds it, then bisection of the last step; no
+/// further than `reach` either side. The profile is followed as a function of a continuous
+/// time, not interpolated between frames: under one frame, a residual that is quadratic
+/// in time is far from linear between frames, and linear interpolation there made the
+/// interval several times too narrow.
+fn continuous_interval(
+    f: &impl Fn(f64) -> f64,
+    x0: f64,
+    step: f64,
+    reach: f64,
+    limit: f64,
+) -> (f64, f64) {
+    let side = |dir: f64| -> f64 {
+        let (mut inside, mut d) = (0.0, step);
+        loop {
+            if d >= reach {
+                return reach;
+            }
+            if f(x0 + dir * d) > limit {
+                break;
+            }
+            inside = d;
+            d *= 2.0;
+        }
+        let mut outside = d;
+        for _ in 0..5 {
+            let m = 0.5 * (inside + outside);
+            if f(x0 + dir * m) > limit {
+                outside = m;
+            } else {
+                inside = m;
+            }
+        }
+        0.5 * (inside + outside)
+    };
+    (x0 - side(-1.0), x0 + side(1.0))
 }
 
 /// Time of the peak rate: the vertex of a least-squares parabola through the contiguous rate
@@ -462,6 +526,22 @@ mod tests {
             })
             .collect();
         (t, y)
+    }
+
+    #[test]
+    fn continuous_interval_finds_where_a_parabola_crosses_its_limit() {
+        // (x - 1)^2 <= 0.25 on [0.5, 1.5]; a reach of 0.3 stops the walk at 0.7 and 1.3.
+        let f = |x: f64| (x - 1.0) * (x - 1.0);
+        let (lo, hi) = continuous_interval(&f, 1.0, 0.01, 10.0, 0.25);
+        assert!(
+            (lo - 0.5).abs() < 0.01 && (hi - 1.5).abs() < 0.01,
+            "{lo} {hi}"
+        );
+        let (lo, hi) = continuous_interval(&f, 1.0, 0.01, 0.3, 0.25);
+        assert!(
+            (lo - 0.7).abs() < 1e-12 && (hi - 1.3).abs() < 1e-12,
+            "{lo} {hi}"
+        );
     }
 
     #[test]
