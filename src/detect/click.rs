@@ -110,7 +110,8 @@ pub struct Transient {
     /// Largest standard score of its short-term energy against the noise floor (the scale of
     /// the trigger levels, [`trigger_sigma`]).
     pub score_sigma: f64,
-    /// Standard uncertainty of `onset_s`, seconds: from the AIC's likelihood interval.
+    /// Standard uncertainty of `onset_s`, seconds: the AIC likelihood interval, the sampling
+    /// and the part of the rise lost under noise, combined.
     pub onset_sd_s: f64,
 }
 
