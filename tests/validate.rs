@@ -66,7 +66,7 @@ fn check(r: &ValidationReport) {
     let peak = event(r, "motion_peak_s", "all");
     assert!(peak.median_abs_error.unwrap() <= 0.3, "{at}: {peak:?}");
     // Target: loading onset and loading_ms median <= 5 %, p95 <= 20 % of the loading time,
-    // and the 95 % interval covering the truth about as often as it claims (0.955-0.970
+    // and the 95 % interval covering the truth about as often as it claims (0.940-0.955
     // measured; with 265 onsets the binomial sd is 0.013, so 0.92-0.99 is about 2.5 sd).
     for name in ["loading_onset_s", "loading_ms"] {
         let e = event(r, name, "all");
@@ -90,12 +90,12 @@ fn check(r: &ValidationReport) {
     }
     // Reported uncertainties: how often value +- 1.96 sd covers the truth. Not a target of
     // the issue (only the loading interval is); guarded at today's level less a margin, so
-    // that they do not slide back. Measured 0.85 / 0.92 / 0.93 for the video release (0.70 /
-    // 0.73 / 0.58 over 1800 trials when the release profile held the shape fixed and was
-    // interpolated between frames), 0.96 / 0.97 / 0.91 audio-refined, 0.94 / 0.94 / 0.90
-    // for release_ms.
+    // that they do not slide back. Measured 0.91 / 0.96 / 0.95 for the video release (0.70 /
+    // 0.73 / 0.58 over 1800 trials when the release profile held the shape fixed, was
+    // interpolated between frames and took the large-sample limit), 0.96 / 0.97 / 0.91
+    // audio-refined, 0.94 / 0.96 / 0.91 for release_ms.
     for (name, at_least) in [
-        ("latch_release_video_s", 0.80),
+        ("latch_release_video_s", 0.86),
         ("latch_release_s (audio-refined)", 0.86),
         ("release_ms", 0.83),
     ] {

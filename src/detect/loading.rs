@@ -9,8 +9,9 @@
 //! 2. Profile likelihood around the hinge onset (Venzon & Moolgavkar 1988 for profile
 //!    intervals): y = a + b h^p with the exponent p in [1, 2] profiled out, because how gently
 //!    a muscle or motor starts to load is unknown and a gentle start hides in noise. The
-//!    reported onset is the best tau; the 95 % interval is the set of tau whose likelihood
-//!    ratio to the best stays under chi-square(1) = 3.84.
+//!    reported onset is the best tau; the 95 % interval is the set of tau whose residual stays
+//!    under the profile-t limit ([`super::profile_limit`]), which is the chi-square(1) = 3.84
+//!    likelihood-ratio limit with many frames and wider with few.
 
 use serde::{Deserialize, Serialize};
 
@@ -178,7 +179,8 @@ fn hinge(tt: &[f64], yy: &[f64]) -> Option<Hinge> {
         (onset_straight, &straight, k_line, sse_line)
     };
     // The interval's ends are interpolated between frames, where the profile crosses the limit.
-    let limit = sse_chosen.max(1e-300) * (3.84 / nf).exp();
+    let params = if curvature_f > 1.0 { 4 } else { 3 };
+    let limit = super::profile_limit(sse_chosen, tt.len(), params);
     let statistical_s = super::profile_half_width(tt, profile, k_chosen, limit);
     // Where the straight and the curved start disagree, neither is known to be the true
     // shape: their difference joins the interval in quadrature (model-form uncertainty).
@@ -341,7 +343,8 @@ impl Bins {
             }),
             _ => bt[k_best],
         };
-        let limit = sse_min.max(1e-300) * (3.84 / frames as f64).exp();
+        // Four parameters: level, scale, exponent and onset.
+        let limit = super::profile_limit(sse_min, frames, 4);
         // The profile is jagged (each frame's noise enters or leaves the drift as tau passes
         // it), so the interval spans every candidate under the limit, not just the run around
         // the best.
@@ -361,7 +364,7 @@ impl Bins {
 /// Profile likelihood of the onset with the exponent p as a nuisance parameter: for each
 /// candidate onset the residual sum of squares is the least over p of the fit
 /// y = a + b max(0, t - tau)^p, and the 95 % interval is where that profile stays under the
-/// chi-square(1) limit. Candidates run from half the loading before `guess` to a fifth after.
+/// profile-t limit. Candidates run from half the loading before `guess` to a fifth after.
 /// Long series are binned; the profile is then run again with single frames (or finer bins)
 /// around the interval the binned one found, so bins never set the interval's scale.
 fn power_profile(tt: &[f64], yy: &[f64], guess: f64) -> Option<PowerOnset> {
@@ -493,7 +496,7 @@ mod tests {
             .copied()
             .min_by(|a, b| a.1.total_cmp(&b.1))
             .unwrap();
-        let limit = best.1 * (3.84 / used as f64).exp();
+        let limit = crate::detect::profile_limit(best.1, used, 4);
         let inside: Vec<f64> = profile
             .iter()
             .filter(|p| p.1 <= limit)

@@ -217,7 +217,8 @@ fn spring_onset(
             .fold(f64::INFINITY, f64::min)
     };
     let best = profile(tau);
-    let limit = best.max(1e-300) * (3.84 / tw.len() as f64).exp();
+    // Five parameters besides the discrete shape: level, slope, size, joint and time scale.
+    let limit = super::profile_limit(best, tw.len(), 5);
     let period = (tw[tw.len() - 1] - t0) / (tw.len() - 1) as f64;
     let (lo, hi) = continuous_interval(
         &profile,
