@@ -491,7 +491,16 @@ pub fn detect_release(
         } else {
             mid[k]
         };
-        let end_s = match overdamped_end(t, y, t_mid, crossing_s) {
+        // A phase whose fall from the peak rate alone outlasts the longest release is no
+        // release (a failed trigger relaxing, say): it is thrown out below as too slow, and the
+        // fit over its hundreds of frames would cost milliseconds.
+        let too_slow = crossing_s - t_mid > config.max_release_ms * 1e-3;
+        let fitted = if too_slow {
+            None
+        } else {
+            overdamped_end(t, y, t_mid, crossing_s)
+        };
+        let end_s = match fitted {
             Some((end_s, sd_s)) => {
                 motion_peak_sd_s = sd_s.max(0.05 * period_s);
                 end_s
@@ -501,6 +510,12 @@ pub fn detect_release(
         let idx = t.partition_point(|v| *v < end_s).min(n - 1);
         (end_s, y[idx], idx)
     };
+    // Every release candidate below lies at or before the peak rate, so a motion peak this
+    // far after it is too slow whatever the release: stop before the fit, whose window would
+    // span the hundreds of frames of a failed trigger's relaxation.
+    if motion_peak_s - mid[i_max] > config.max_release_ms * 1e-3 {
+        return None;
+    }
     // The window reaches 3 rising edges (at least 12 frames) before the edge's end, and
     // at least 2.5 times the peak-rate-to-motion-peak time before the peak rate: the rate's
     // 10 % crossing that bounds the edge is noisy at high frame rates, where it can fall long
