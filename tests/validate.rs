@@ -92,12 +92,13 @@ fn check(r: &ValidationReport) {
     // the issue (only the loading interval is); guarded at today's level less a margin, so
     // that they do not slide back. Measured 0.91 / 0.96 / 0.95 for the video release (0.70 /
     // 0.73 / 0.58 over 1800 trials when the release profile held the shape fixed, was
-    // interpolated between frames and took the large-sample limit), 0.96 / 0.97 / 0.91
-    // audio-refined, 0.94 / 0.96 / 0.91 for release_ms.
+    // interpolated between frames and took the large-sample limit), 0.97 / 0.97 / 0.94
+    // audio-refined (0.91 at 250 kHz with a linear rise lost under noise), 0.95 / 0.97 /
+    // 0.94 for release_ms.
     for (name, at_least) in [
         ("latch_release_video_s", 0.86),
-        ("latch_release_s (audio-refined)", 0.86),
-        ("release_ms", 0.83),
+        ("latch_release_s (audio-refined)", 0.92),
+        ("release_ms", 0.90),
     ] {
         let coverage = event(r, name, "all").coverage_95.unwrap();
         assert!(coverage >= at_least, "{at}: {name} coverage {coverage}");
