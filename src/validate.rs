@@ -490,28 +490,26 @@ fn score_trial(
         };
         push(4, err_ms.map(|e| 100.0 * e / load_ms), covered);
     }
-    let relative = |r: Option<f64>, t: Option<f64>| match (r, t) {
-        (Some(r), Some(t)) if t != 0.0 => Some(100.0 * ((r - t) / t).abs()),
-        _ => None,
-    };
+    let relative =
+        |r: Option<f64>, t: f64| r.filter(|_| t != 0.0).map(|r| 100.0 * ((r - t) / t).abs());
     if let Some(t) = truth.loading_ms {
         push(
             5,
-            relative(record.loading_ms, Some(t)),
+            relative(record.loading_ms, t),
             within(record.loading_ms, record.loading_ms_sd, t),
         );
     }
     if let Some(t) = truth.release_ms {
         push(
             6,
-            relative(record.release_ms, Some(t)),
+            relative(record.release_ms, t),
             within(record.release_ms, record.release_ms_sd, t),
         );
     }
     if let Some(t) = truth.amplification {
         push(
             7,
-            relative(record.amplification, Some(t)),
+            relative(record.amplification, t),
             within(record.amplification, record.amplification_sd, t),
         );
     }

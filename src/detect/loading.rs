@@ -173,13 +173,13 @@ fn hinge(tt: &[f64], yy: &[f64]) -> Option<Hinge> {
     // by more than its own noise share (F(1, n) above 1, a lenient test, because a curved
     // start read as straight comes late while a straight one read as curved comes early).
     let curvature_f = (sse_line - sse_min) / (sse_min.max(1e-300) / (nf - 4.0));
-    let (onset, profile, k_chosen, sse_chosen) = if curvature_f > 1.0 {
-        (onset_curved, &curved, k_best, sse_min)
+    // Parameters: level, drift, onset, and the curvature when it is kept.
+    let (onset, profile, k_chosen, sse_chosen, params) = if curvature_f > 1.0 {
+        (onset_curved, &curved, k_best, sse_min, 4)
     } else {
-        (onset_straight, &straight, k_line, sse_line)
+        (onset_straight, &straight, k_line, sse_line, 3)
     };
     // The interval's ends are interpolated between frames, where the profile crosses the limit.
-    let params = if curvature_f > 1.0 { 4 } else { 3 };
     let limit = super::profile_limit(sse_chosen, tt.len(), params);
     let statistical_s = super::profile_half_width(tt, profile, k_chosen, limit);
     // Where the straight and the curved start disagree, neither is known to be the true

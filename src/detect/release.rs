@@ -176,7 +176,7 @@ fn spring_onset(
     // Each shape's tau is refined between frames by golden-section search (the residual sum
     // of squares is far from a parabola there: the fit changes which frames lie on the curve);
     // the shape with the least refined residual wins.
-    let refine = |zeta: f64, candidates: &[(usize, f64)]| -> Option<(usize, f64, f64)> {
+    let refine = |zeta: f64, candidates: &[(usize, f64)]| -> Option<(f64, f64)> {
         let &(k, _) = candidates.iter().min_by(|a, b| a.1.total_cmp(&b.1))?;
         let has = |k: usize| candidates.iter().any(|c| c.0 == k);
         let lo = if has(k.wrapping_sub(1)) {
@@ -187,12 +187,12 @@ fn spring_onset(
         let hi = if has(k + 1) { tw[k + 1] } else { tw[k] };
         let sse = |tau: f64| sse_at(tau, zeta).unwrap_or(f64::INFINITY);
         let tau = golden_min(lo, hi, sse);
-        Some((k, tau, sse(tau)))
+        Some((tau, sse(tau)))
     };
-    let (_, tau, _) = RELEASE_ZETAS
+    let (tau, _) = RELEASE_ZETAS
         .iter()
         .filter_map(|&z| refine(z, &grid(z)))
-        .min_by(|a, b| a.2.total_cmp(&b.2))?;
+        .min_by(|a, b| a.1.total_cmp(&b.1))?;
     // The profile residual at tau, with the shape and the time scale h nuisance parameters:
     // the least over the shapes and over h. The measured peak rate fixes h = t_mid - tau for
     // the estimate, but a peak rate a little off trades against tau (and the shape against
