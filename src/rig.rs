@@ -69,7 +69,9 @@ pub struct RigProfile {
     pub click_false_alarm: f64,
     /// Chance that noise alone raises a false click in the core of the expected stretch: the
     /// part within three standard uncertainties of the video release and
-    /// `sync_tolerance_min_ms` of where the clock relation puts the click.
+    /// `sync_tolerance_min_ms` of where the clock relation puts the click. When no click is
+    /// found at all in a trial whose video shows a release, the expected stretch and
+    /// `double_click_window_ms` either side of it are searched again at this chance.
     pub click_core_false_alarm: f64,
     /// Length of the click detector's short-term energy window, ms.
     pub click_window_ms: f64,
@@ -111,7 +113,7 @@ impl Default for RigProfile {
             efficiency_model: EfficiencyModel::Energy,
             highpass_hz: 1000.0,
             click_false_alarm: 0.005,
-            click_core_false_alarm: 0.05,
+            click_core_false_alarm: 0.1,
             click_window_ms: 0.5,
             double_click_window_ms: 30.0,
             min_click_centroid_hz: 2000.0,

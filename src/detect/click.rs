@@ -379,24 +379,34 @@ fn guided_ranges(
         .collect()
 }
 
+/// False-alarm chances of the searches a click other than the strongest must clear
+/// ([`TransientScan::keep_clear_second_clicks`]).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SecondClickChances {
+    /// Of a search of the stretch around the strongest click.
+    pub near: f64,
+    /// Of a search of the whole recording, for clicks further away.
+    pub far: f64,
+}
+
 impl TransientScan {
     /// Drops the clicks other than `main` that do not clear the level of a search for a
-    /// second click at chance `false_alarm`: within `around_s` of the main click, the level
-    /// of a search of that stretch; elsewhere, of a search of the whole recording. A weak
-    /// click found where the video said the click should be, next to a stronger one, is
-    /// more likely noise than a second click.
+    /// second click: within `around_s` of the main click, of a search of that stretch at
+    /// chance `chances.near`; elsewhere, of a search of the whole recording at `chances.far`.
+    /// A weak click found where the video said the click should be, next to a stronger one,
+    /// is more likely noise than a second click.
     pub fn keep_clear_second_clicks(
         &mut self,
         signal: &AudioSignal,
         config: &ClickConfig,
         main_onset_s: f64,
         around_s: f64,
-        false_alarm: f64,
+        chances: SecondClickChances,
     ) {
         let fs = signal.sample_rate_hz;
         let b = energy_window(config, fs);
-        let near = trigger_sigma(false_alarm, (2.0 * around_s * fs) as usize, b);
-        let far = trigger_sigma(false_alarm, signal.samples.len(), b);
+        let near = trigger_sigma(chances.near, (2.0 * around_s * fs) as usize, b);
+        let far = trigger_sigma(chances.far, signal.samples.len(), b);
         self.transients.retain(|t| {
             let gap_s = (t.onset_s - main_onset_s).abs();
             if !t.is_click || gap_s < 1e-9 {
@@ -854,7 +864,7 @@ pub fn spectral_centroid_hz(x: &[f64], sample_rate_hz: f64, scratch: &mut ClickS
 }
 
 #[cfg(test)]
-mod tests {
+pub(crate) mod tests {
     use super::*;
     use rand::{Rng, SeedableRng};
 
@@ -908,7 +918,8 @@ mod tests {
         assert!((c - 6000.0).abs() < 150.0, "{c}");
     }
 
-    fn noise_signal(fs: f64, seconds: f64, sigma: f64, seed: u64) -> AudioSignal {
+    /// White noise of standard deviation `sigma`, `seconds` long at `fs`, from `seed`.
+    pub(crate) fn noise_signal(fs: f64, seconds: f64, sigma: f64, seed: u64) -> AudioSignal {
         use rand_distr::{Distribution, Normal};
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
         let noise = Normal::new(0.0, sigma).unwrap();
