@@ -441,16 +441,12 @@ pub fn detect_audio(
     let config = click::ClickConfig::from(rig);
     let around_s = rig.double_click_window_ms * 1e-3;
     let mut hints: Vec<click::SearchHint> = expected.iter().flat_map(|e| e.hints()).collect();
-    if let (Some(e), true) = (expected.map(|e| e.stretch), around_s > 0.0) {
+    if let (Some(e), true) = (expected, around_s > 0.0) {
         // Where the click should be, and the second-click stretch around it, in one pass. That
         // stretch is also where a click of a trial whose clocks slipped lies, so it is searched
         // at the main-click chance; a second click found in it must still clear the stricter
         // second-click level (`keep_clear_second_clicks`, below).
-        hints.push(click::SearchHint {
-            start_s: e.start_s - around_s,
-            end_s: e.end_s + around_s,
-            false_alarm: rig.click_false_alarm,
-        });
+        hints.push(e.widened(around_s, rig.click_false_alarm));
     }
     let mut scan = click::scan_transients(signal, &config, scratch, &hints);
     if let Some(e) = expected.filter(|_| strongest_click(&scan.transients).is_none()) {
@@ -459,11 +455,7 @@ pub fn detect_audio(
         // around it are searched again at the core chance: a false click found there costs
         // a `low_snr` (and, out of place, a `sync_mismatch`) on a trial looked at anyway, a
         // missed one a false `no_click`.
-        let region = click::SearchHint {
-            start_s: e.stretch.start_s - around_s,
-            end_s: e.stretch.end_s + around_s,
-            false_alarm: rig.click_core_false_alarm,
-        };
+        let region = e.widened(around_s, rig.click_core_false_alarm);
         scan.rescan(
             signal,
             &config,
@@ -571,6 +563,15 @@ impl ExpectedClick {
     /// Both stretches, as searches.
     pub fn hints(&self) -> [click::SearchHint; 2] {
         [self.stretch, self.core]
+    }
+
+    /// The stretch widened by `around_s` either side, searched at `false_alarm`.
+    pub fn widened(&self, around_s: f64, false_alarm: f64) -> click::SearchHint {
+        click::SearchHint {
+            start_s: self.stretch.start_s - around_s,
+            end_s: self.stretch.end_s + around_s,
+            false_alarm,
+        }
     }
 }
 
