@@ -75,8 +75,8 @@ pub struct RigProfile {
     pub click_core_false_alarm: f64,
     /// Length of the click detector's short-term energy window, ms.
     pub click_window_ms: f64,
-    /// A second click is sought at the guided threshold this far either side of the strongest
-    /// click, ms; beyond it only the whole-recording threshold applies.
+    /// A second click is sought at a lowered threshold this far either side of the strongest
+    /// click, lowest after it, ms; beyond it only the whole-recording threshold applies.
     pub double_click_window_ms: f64,
     /// A transient whose spectral centroid is below this is a thump, not a click, Hz.
     pub min_click_centroid_hz: f64,

@@ -383,16 +383,19 @@ fn guided_ranges(
 /// ([`TransientScan::keep_clear_second_clicks`]).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct SecondClickChances {
-    /// Of a search of the stretch around the strongest click.
-    pub near: f64,
+    /// Of a search of the stretch after the strongest click (a rebound, a second release).
+    pub after: f64,
+    /// Of a search of the stretch of the same length before it (a precursor).
+    pub before: f64,
     /// Of a search of the whole recording, for clicks further away.
     pub far: f64,
 }
 
 impl TransientScan {
     /// Drops the clicks other than `main` that do not clear the level of a search for a
-    /// second click: within `around_s` of the main click, of a search of that stretch at
-    /// chance `chances.near`; elsewhere, of a search of the whole recording at `chances.far`.
+    /// second click: within `around_s` after the main click, of a search of that stretch at
+    /// chance `chances.after`; within `around_s` before it, of a search of that stretch at
+    /// `chances.before`; elsewhere, of a search of the whole recording at `chances.far`.
     /// A weak click found where the video said the click should be, next to a stronger one,
     /// is more likely noise than a second click.
     pub fn keep_clear_second_clicks(
@@ -405,14 +408,23 @@ impl TransientScan {
     ) {
         let fs = signal.sample_rate_hz;
         let b = energy_window(config, fs);
-        let near = trigger_sigma(chances.near, (2.0 * around_s * fs) as usize, b);
+        let side = (around_s * fs) as usize;
+        let after = trigger_sigma(chances.after, side, b);
+        let before = trigger_sigma(chances.before, side, b);
         let far = trigger_sigma(chances.far, signal.samples.len(), b);
         self.transients.retain(|t| {
-            let gap_s = (t.onset_s - main_onset_s).abs();
-            if !t.is_click || gap_s < 1e-9 {
+            let gap_s = t.onset_s - main_onset_s;
+            if !t.is_click || gap_s.abs() < 1e-9 {
                 return true;
             }
-            t.score_sigma >= if gap_s <= around_s { near } else { far }
+            let level = if gap_s.abs() > around_s {
+                far
+            } else if gap_s > 0.0 {
+                after
+            } else {
+                before
+            };
+            t.score_sigma >= level
         });
     }
 
@@ -1066,5 +1078,60 @@ pub(crate) mod tests {
         assert!(aic_onset(&x).unwrap() < 10);
         let k = aic_onset_from(&x, 50).unwrap();
         assert!((290..=310).contains(&k), "{k}");
+    }
+
+    #[test]
+    fn a_weak_click_after_the_strongest_is_kept_where_the_same_click_before_it_is_not() {
+        // 48 kHz, 0.4 s, 30 ms either side: the side after is searched at 0.002 (4.26
+        // standard scores), the side before at 0.0005 (4.56), the rest of the recording at
+        // 0.00025 (5.21); the values are those of `trigger_sigma`, checked by hand against
+        // the normal upper quantiles of 0.002 / 198, 0.0005 / 198 and 0.00025 / 2640.
+        let signal = noise_signal(48_000.0, 0.4, 0.01, 1);
+        let config = ClickConfig::default();
+        let b = energy_window(&config, 48_000.0);
+        let after = trigger_sigma(0.002, 1440, b);
+        let before = trigger_sigma(0.0005, 1440, b);
+        let far = trigger_sigma(0.00025, 19_200, b);
+        assert!(
+            (after - 4.26).abs() < 0.01 && (before - 4.56).abs() < 0.01,
+            "{after} {before}"
+        );
+        assert!((far - 5.21).abs() < 0.01, "{far}");
+        let click = |onset_s: f64, score_sigma: f64| Transient {
+            onset_s,
+            peak_s: onset_s + 1e-4,
+            peak_dbfs: -30.0,
+            peak_filtered: 0.03,
+            duration_ms: 1.0,
+            rise_ms: 0.1,
+            centroid_hz: 8000.0,
+            snr_db: 12.0,
+            clipped: false,
+            is_click: true,
+            guided: false,
+            score_sigma,
+            onset_sd_s: 1e-5,
+        };
+        let between = 0.5 * (after + before);
+        let mut scan = TransientScan {
+            transients: vec![
+                click(0.100, 0.5 * (before + far)),
+                click(0.185, between),
+                click(0.200, 20.0),
+                click(0.215, between),
+                click(0.300, far + 0.1),
+            ],
+            noise_sigma: 0.01,
+            noise_var: 1e-4,
+            spread: None,
+        };
+        let chances = SecondClickChances {
+            after: 0.002,
+            before: 0.0005,
+            far: 0.00025,
+        };
+        scan.keep_clear_second_clicks(&signal, &config, 0.200, 0.030, chances);
+        let kept: Vec<f64> = scan.transients.iter().map(|t| t.onset_s).collect();
+        assert_eq!(kept, vec![0.200, 0.215, 0.300]);
     }
 }
