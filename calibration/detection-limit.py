@@ -16,7 +16,7 @@ energy (time constant 0.35 ms); the largest per-bin power of a 32-sample Hann ST
 bins 1.5-20 kHz). The model and the script are ours, not a reference: they say what the
 detector can do against the synthetic clicks `validate` scores, nothing about real clicks.
 
-Run: python3 calibration/detection-limit.py (numpy and scipy; about five minutes).
+Run: python3 calibration/detection-limit.py (numpy and scipy; under a minute on 2 cores).
 """
 
 import numpy as np
