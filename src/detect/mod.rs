@@ -533,7 +533,7 @@ const SECOND_CLICK_FALSE_ALARM_SHARE: f64 = 0.4;
 /// assumption, not a measurement on real recordings; `validate` makes second clicks after the
 /// first only, so it cannot test it. Halving each search's length lowers the level after the
 /// strongest click (4.41 to 4.26 standard scores at 48 kHz) and raises it before (to 4.56;
-/// the whole-recording level a click further away must clear is 5.2). On 6000 `validate`
+/// the whole-recording level a click further away must clear is 5.21). On 6000 `validate`
 /// trials at 48 kHz this took recall of second clicks of 10 dB or more from 0.968 to 0.972
 /// (seed 11) and from 0.954 to 0.967 (seed 12), precision from 0.972 to 0.972 and from 0.981
 /// to 0.974.
