@@ -384,6 +384,7 @@ mod tests {
                 missing_frames: 0,
                 uniform: true,
                 max_residual_s: 0.0,
+                timestamp_step_s: None,
             },
             noise_sigma: 0.1,
             motion: Some(crate::detect::release::MotionEvents {
@@ -398,6 +399,10 @@ mod tests {
                 overshoot: true,
                 release_sd_s: 1e-4,
                 motion_peak_sd_s: 1e-4,
+                fast_phase_end_s: 0.104,
+                fast_phase_end_sd_s: 0.1e-3,
+                release_rate_share: 0.0,
+                fit: None,
             }),
             loading: Some(crate::detect::loading::LoadingOnset {
                 onset_s: 0.016,

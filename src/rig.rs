@@ -120,7 +120,7 @@ impl Default for RigProfile {
             click_detection_top_hz: 20_000.0,
             click_merge_ms: 1.0,
             release_rate_fraction: 0.1,
-            release_min_jump_sigma: 15.0,
+            release_min_jump_sigma: 8.0,
             max_release_ms: 25.0,
         }
     }

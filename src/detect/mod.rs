@@ -15,7 +15,9 @@ pub mod clock;
 pub mod filter;
 pub mod loading;
 pub mod oscillation;
+pub mod phases;
 pub mod release;
+pub mod trace;
 
 /// Scale from median absolute deviation to standard deviation for Gaussian noise.
 pub const MAD_TO_SIGMA: f64 = 1.482_602_218_505_602;
@@ -252,6 +254,10 @@ mod tests {
             overshoot: false,
             release_sd_s: 0.1e-3,
             motion_peak_sd_s: 0.1e-3,
+            fast_phase_end_s: 0.105,
+            fast_phase_end_sd_s: 0.1e-3,
+            release_rate_share: 0.0,
+            fit: None,
         };
         let video = VideoEvents {
             clock: clock::FrameClock {
@@ -260,6 +266,7 @@ mod tests {
                 missing_frames: 0,
                 uniform: true,
                 max_residual_s: 0.0,
+                timestamp_step_s: None,
             },
             noise_sigma: 0.01,
             motion: Some(motion),
@@ -611,7 +618,7 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
     let clock = clock::frame_clock(series);
     let t = &clock.time_s;
     let y = &series.motion;
-    let noise_sigma = release::frame_noise_sigma(y);
+    let noise_sigma = trace::noise_sigma(y, trace::column_print_step(y));
     let motion = release::detect_release(t, y, clock.period_s, noise_sigma, &rig.into());
     let loading_end = match &motion {
         Some(m) => m.pre_release_index + 1,
@@ -626,8 +633,9 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
         }
     };
     let loading = loading::detect_loading(t, &series.loading, loading_end, clock.period_s);
-    let mut motion = motion;
-    let fit = motion.as_ref().filter(|m| m.overshoot).and_then(|m| {
+    // The oscillation starts at the data's own first extremum; its fitted model never moves
+    // the motion peak.
+    let oscillation = motion.as_ref().filter(|m| m.overshoot).and_then(|m| {
         oscillation::detect_oscillation(
             t,
             y,
@@ -637,21 +645,8 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
             noise_sigma,
             clock.period_s,
         )
+        .map(|found| found.0)
     });
-    let oscillation = fit.as_ref().map(|f| f.0.clone());
-    if let (Some(m), Some((_, Some((first_extremum_s, first_sd_s))))) = (motion.as_mut(), &fit) {
-        // The fitted first extremum uses the frames of the whole first cycles; the three-frame
-        // parabola is pulled towards the slower side of an asymmetric peak and, at high frame
-        // rates, by noise. Take the fit when it agrees with the parabola to within 1.5 frames
-        // or a tenth of a cycle.
-        let cycle_s = fit.as_ref().map_or(0.0, |f| 1.0 / f.0.frequency_hz);
-        let agree_s = (1.5 * clock.period_s).max(0.1 * cycle_s);
-        if (first_extremum_s - m.motion_peak_s).abs() <= agree_s && *first_extremum_s > m.release_s
-        {
-            m.motion_peak_s = *first_extremum_s;
-            m.motion_peak_sd_s = first_sd_s.max(0.01 * clock.period_s);
-        }
-    }
     VideoEvents {
         clock,
         noise_sigma,

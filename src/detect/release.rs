@@ -1,36 +1,50 @@
-//! Latch release and motion peak on the video clock.
+//! Latch release, motion peak and the end of the fast phase on the video clock.
 //!
-//! The motion rate is the finite difference of the motion measure over a window of w frames,
-//! w the smallest of 1, 2, 4, ... 64 frames over which the largest change stands eight noise
-//! standard deviations clear of the largest change noise alone reaches over the series (one
-//! frame at ordinary frame rates; more at tens of thousands of frames per second, where one
-//! frame moves little). The fast phase is the run around the largest rate; a trial has a
-//! release only when that phase moves the measure by `min_jump_sigma` per-frame noise standard
-//! deviations or more, and lasts no longer than `max_release_ms` (a slow relaxation of a
-//! failed trigger is not a release).
+//! [`super::phases`] finds where the fast phase lies: the first move, in time, that leaves the
+//! held state and is at least half the largest move of the trace (ringing that is steeper than
+//! the release comes later). Inside that phase the motion rate is estimated from averaged
+//! windows: the difference of the means of the w frames after and before each frame boundary,
+//! w the running-mean width the phase needed to stand out of the noise. Each event is then a
+//! boundary of the phase with a local fit of its own:
 //!
-//! Definitions (see README):
 //! - latch release: the start of the fast phase, where the accelerating motion begins. A
 //!   straight line (the slow drift before) joined by the displacement of a spring-mass system
 //!   let go from rest (damping ratio 0, 0.2, 0.4 or 0.6, whichever fits best; 1 - cos when
 //!   undamped) is fitted by least squares, and its joint is the release. The shape's time
 //!   scale comes from the time of the peak rate. The fit runs to the peak rate when three or
-//!   more frames lie on the rising edge, else to the motion peak. Without a fit, the time at
-//!   which the rate crosses `rate_fraction` (default 10 %) of its peak. A latch that lets go
-//!   progressively creeps before it snaps; this definition times the snap.
-//! - motion peak: the first extremum after the release in the direction of the motion, found
-//!   with a hysteresis of eight noise standard deviations (or 5 % of the jump) and refined by
-//!   a parabola through the three frames around it. With no overshoot (overdamped), the motion
-//!   peak is where the rate falls back through the same fraction of its peak.
+//!   more rate samples lie on the rising edge, else to the motion peak. A joint on the first
+//!   frames of its window is no joint: the window is doubled backwards and the fit run again.
+//!   Without a fit, the time at which the rate crosses `rate_fraction` (default 10 %) of its
+//!   peak. A latch that creeps before it snaps has no sharp start: the release then times the
+//!   snap, and the rate's rise from 5 % (or the lowest share noise allows) to 25 % of its peak,
+//!   beyond what the spring shape itself takes, is added to the uncertainty as a definitional
+//!   spread.
+//! - motion peak: the data's own first extremum in the direction of the motion (the frame where
+//!   the phase's move turns back), refined by a least-squares fit of two half-parabolas that
+//!   share a vertex (the rise and the fall of a peak need not be equally sharp) over the frames
+//!   within four noise standard deviations of the top; by a parabola through three frames when
+//!   fewer than six are that close. No model fitted to other frames ever moves it.
+//! - end of the fast phase: the motion peak when the motion runs straight into it; when the
+//!   motion comes to rest first (overdamped, or a peak reached long after the speed has fallen
+//!   under `rate_fraction` of its peak), the release fit run backwards in time from the rest.
+//!
+//! A trial has a release only when the phase moves the measure by `min_jump_sigma` per-frame
+//! noise standard deviations or more and ends within `max_release_ms` of its peak rate (a
+//! failed trigger's slow relaxation is not a release).
 
 use serde::{Deserialize, Serialize};
+
+use super::phases::{locate_fast_phase, FastPhase};
+use super::trace::Prefix;
 
 /// Settings of the release detector (taken from the rig profile).
 #[derive(Debug, Clone, PartialEq)]
 pub struct ReleaseConfig {
     /// Fraction of the peak rate that marks the start of the fast phase. Default 0.1.
     pub rate_fraction: f64,
-    /// Smallest fast-phase movement, in per-frame noise standard deviations. Default 15.
+    /// Smallest fast-phase movement, in per-frame noise standard deviations. Default 8: a jump
+    /// of ten noise standard deviations is plain to the eye, and the phase search has already
+    /// required the move to stand three times clear of what noise reaches.
     pub min_jump_sigma: f64,
     /// Longest fast phase (release to motion peak), ms. Default 25 ms: spring releases take a
     /// few ms; a relaxing muscle or motor takes tens.
@@ -41,7 +55,7 @@ impl Default for ReleaseConfig {
     fn default() -> Self {
         ReleaseConfig {
             rate_fraction: 0.1,
-            min_jump_sigma: 15.0,
+            min_jump_sigma: 8.0,
             max_release_ms: 25.0,
         }
     }
@@ -54,7 +68,8 @@ pub struct MotionEvents {
     pub release_s: f64,
     /// Index of the last frame before the release.
     pub pre_release_index: usize,
-    /// Motion peak, video clock, seconds.
+    /// Motion peak, video clock, seconds: the first extremum, or the end of the fast phase
+    /// when the motion comes to rest without one.
     pub motion_peak_s: f64,
     /// Frame index nearest the motion peak.
     pub motion_peak_index: usize,
@@ -72,13 +87,45 @@ pub struct MotionEvents {
     pub release_sd_s: f64,
     /// Standard uncertainty of `motion_peak_s`, seconds.
     pub motion_peak_sd_s: f64,
+    /// End of the fast phase, video clock, seconds.
+    pub fast_phase_end_s: f64,
+    /// Standard uncertainty of `fast_phase_end_s`, seconds.
+    pub fast_phase_end_sd_s: f64,
+    /// Rate at the release over the peak rate.
+    pub release_rate_share: f64,
+    /// The frames and settings of the release fit, to ask later whether another release time
+    /// (the click's) fits them too.
+    #[serde(skip)]
+    pub fit: Option<ReleaseFit>,
 }
 
-/// Noise standard deviations the largest change over the rate window must reach.
-const MIN_WINDOW_SIGMA: f64 = 8.0;
+/// The frames of a release fit and its least residual.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ReleaseFit {
+    pub start: usize,
+    pub end: usize,
+    pub t_mid_s: f64,
+    pub least_sse: f64,
+}
 
-/// Damping ratios tried for the release shape: undamped (1 - cos) to well damped.
-const RELEASE_ZETAS: [f64; 4] = [0.0, 0.2, 0.4, 0.6];
+/// The release shapes tried: a spring-mass system let go from rest, damping ratio 0 (1 - cos),
+/// 0.2, 0.4 or 0.6, each from rest to its first extremum. Rises whose speed grows as sin^q
+/// (abrupt or gentle starts) were tried as well: chosen by the least residual they moved the
+/// joint by noise (median error on half-cosine releases 0.22 -> 0.69 frame at 2000 fps in the
+/// independent campaign of `calibration/independent/`) and did not remove the bias of
+/// asymmetric rises.
+const RELEASE_FORMS: [Form; 4] = [
+    Form::Spring(0.0),
+    Form::Spring(0.2),
+    Form::Spring(0.4),
+    Form::Spring(0.6),
+];
+
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Form {
+    /// Damping ratio of a spring let go from rest.
+    Spring(f64),
+}
 
 /// Displacement, 0 at rest to its first extremum, of a spring-mass system let go from rest
 /// with damping ratio `zeta`, `h` seconds after release, scaled in time so that its speed
@@ -86,11 +133,11 @@ const RELEASE_ZETAS: [f64; 4] = [0.0, 0.2, 0.4, 0.6];
 /// zeta^2) sin(wd h)), held at its first extremum (wd h = pi). For zeta = 0, 1 - cos(wd h).
 #[cfg(test)]
 fn release_shape(h: f64, h_mid: f64, zeta: f64) -> f64 {
-    ReleaseShape::new(h_mid, zeta).at(h)
+    ReleaseShape::new(h_mid, Form::Spring(zeta)).at(h)
 }
 
-/// [`release_shape`] for one time scale and damping ratio, its constants worked out once:
-/// the fits evaluate it at every frame of the window for each trial joint.
+/// One release shape at one time scale, its constants worked out once: the fits evaluate it at
+/// every frame of the window for each trial joint.
 struct ReleaseShape {
     wd: f64,
     decay_rate: f64,
@@ -99,7 +146,8 @@ struct ReleaseShape {
 }
 
 impl ReleaseShape {
-    fn new(h_mid: f64, zeta: f64) -> Self {
+    fn new(h_mid: f64, form: Form) -> Self {
+        let Form::Spring(zeta) = form;
         let root = (1.0 - zeta * zeta).sqrt();
         let wd = root.atan2(zeta) / h_mid;
         ReleaseShape {
@@ -132,7 +180,7 @@ const COARSE_JOINTS: usize = 32;
 /// peak rate): y = a + b t + A shape(t - tau). Near tau the shape is the parabola of constant
 /// initial acceleration; unlike that parabola it keeps fitting as the spring's force falls
 /// off, so more frames can be used. The damping ratio of the shape is chosen from
-/// [`RELEASE_ZETAS`] by the least residual; tau runs over the frames of the window, and the
+/// [`RELEASE_FORMS`] by the least residual; tau runs over the frames of the window, and the
 /// best is refined between frames by golden-section search. Returns tau and its standard
 /// uncertainty: the half-width over 1.96 of the 95 % profile-likelihood interval of tau, with
 /// the shape and its time scale profiled out.
@@ -143,43 +191,17 @@ fn spring_onset(
     end: usize,
     t_mid_s: f64,
     coarse_joints: usize,
-) -> Option<(f64, f64)> {
-    let end = end.min(y.len());
-    if end < start + 8 {
-        return None;
-    }
-    let (tw, yw) = (&t[start..end], &y[start..end]);
-    let t0 = tw[0];
-    let syy: f64 = yw.iter().map(|v| v * v).sum();
-    // Residual sum of squares of the linear fit for a given tau and shape: syy - c'v.
-    let sse_h = |tau: f64, h_mid: f64, zeta: f64| -> Option<f64> {
-        if h_mid <= 0.0 {
-            return None;
-        }
-        let shape = ReleaseShape::new(h_mid, zeta);
-        let mut m = [[0.0; 3]; 3];
-        let mut v = [0.0; 3];
-        for (&ti, &yi) in tw.iter().zip(yw) {
-            let basis = [1.0, ti - t0, shape.at(ti - tau)];
-            for a in 0..3 {
-                v[a] += basis[a] * yi;
-                for b in a..3 {
-                    m[a][b] += basis[a] * basis[b];
-                }
-            }
-        }
-        (m[1][0], m[2][0], m[2][1]) = (m[0][1], m[0][2], m[1][2]);
-        let c = super::solve_linear(m, v)?;
-        Some((syy - c[0] * v[0] - c[1] * v[1] - c[2] * v[2]).max(0.0))
-    };
-    let sse_at = |tau: f64, zeta: f64| sse_h(tau, t_mid_s - tau, zeta);
+) -> Option<(f64, f64, f64)> {
+    let window = OnsetWindow::new(t, y, start, end, t_mid_s)?;
+    let (tw, t_mid_s) = (window.t, window.t_mid_s);
+    let sse_at = |tau: f64, form: Form| window.sse_h(tau, t_mid_s - tau, form);
     // Every frame before the peak rate is a joint to try; each try costs a pass over the
     // window, so at tens of thousands of frames a second (hundreds of frames in the fast
     // phase) the joints are tried first on a coarse grid of about `coarse_joints`, then
     // frame by frame within two coarse steps of the best.
     let joints: Vec<usize> = (2..tw.len() - 2).filter(|&k| tw[k] < t_mid_s).collect();
-    let grid = |zeta: f64| -> Vec<(usize, f64)> {
-        let at = |k: usize| sse_at(tw[k], zeta).map(|v| (k, v));
+    let grid = |form: Form| -> Vec<(usize, f64)> {
+        let at = |k: usize| sse_at(tw[k], form).map(|v| (k, v));
         let step = joints.len().div_ceil(coarse_joints.max(1)).max(1);
         if step == 1 {
             return joints.iter().filter_map(|&k| at(k)).collect();
@@ -198,7 +220,7 @@ fn spring_onset(
     // Each shape's tau is refined between frames by golden-section search (the residual sum
     // of squares is far from a parabola there: the fit changes which frames lie on the curve);
     // the shape with the least refined residual wins.
-    let refine = |zeta: f64, candidates: &[(usize, f64)]| -> Option<(f64, f64)> {
+    let refine = |form: Form, candidates: &[(usize, f64)]| -> Option<(f64, f64)> {
         let &(k, _) = candidates.iter().min_by(|a, b| a.1.total_cmp(&b.1))?;
         let has = |k: usize| candidates.iter().any(|c| c.0 == k);
         let lo = if has(k.wrapping_sub(1)) {
@@ -207,26 +229,90 @@ fn spring_onset(
             tw[k]
         };
         let hi = if has(k + 1) { tw[k + 1] } else { tw[k] };
-        let sse = |tau: f64| sse_at(tau, zeta).unwrap_or(f64::INFINITY);
+        let sse = |tau: f64| sse_at(tau, form).unwrap_or(f64::INFINITY);
         let tau = golden_min(lo, hi, sse);
         Some((tau, sse(tau)))
     };
-    let (tau, _) = RELEASE_ZETAS
+    let (tau, _) = RELEASE_FORMS
         .iter()
-        .filter_map(|&z| refine(z, &grid(z)))
+        .filter_map(|&f| refine(f, &grid(f)))
         .min_by(|a, b| a.1.total_cmp(&b.1))?;
-    // The profile residual at tau, with the shape and the time scale h nuisance parameters:
-    // the least over the shapes and over h. The measured peak rate fixes h = t_mid - tau for
-    // the estimate, but a peak rate a little off trades against tau (and the shape against
-    // h), and holding them fixed made the interval too narrow: it covered 0.58-0.73 of true
-    // releases in `validate`. The least over h comes from a parabola through three time
-    // scales 15 % apart.
-    let profile = |tau: f64| {
-        let h0 = t_mid_s - tau;
-        RELEASE_ZETAS
+    let profile = |tau: f64| window.profile(tau);
+    let best = profile(tau);
+    // Five parameters besides the discrete shape: level, slope, size, joint and time scale.
+    let limit = super::profile_limit(best, tw.len(), 5);
+    let t0 = tw[0];
+    let period = (tw[tw.len() - 1] - t0) / (tw.len() - 1) as f64;
+    let (lo, hi) = continuous_interval(
+        &profile,
+        tau,
+        0.05 * period,
+        0.5 * (tw[tw.len() - 1] - t0),
+        limit,
+    );
+    Some((tau, 0.5 * (hi - lo) / 1.96, best))
+}
+
+/// The frames a release fit sees, and the residual of the line-plus-spring model on them.
+struct OnsetWindow<'a> {
+    t: &'a [f64],
+    y: &'a [f64],
+    syy: f64,
+    t_mid_s: f64,
+}
+
+impl<'a> OnsetWindow<'a> {
+    /// The frames `start..end`; `None` with fewer than 8.
+    fn new(t: &'a [f64], y: &'a [f64], start: usize, end: usize, t_mid_s: f64) -> Option<Self> {
+        let end = end.min(y.len()).min(t.len());
+        if end < start + 8 {
+            return None;
+        }
+        let y = &y[start..end];
+        Some(OnsetWindow {
+            t: &t[start..end],
+            y,
+            syy: y.iter().map(|v| v * v).sum(),
+            t_mid_s,
+        })
+    }
+
+    /// Residual sum of squares of the linear fit y = a + b (t - t0) + A shape(t - tau) for a
+    /// joint `tau`, time scale `h_mid` and damping ratio `zeta`: syy - c'v.
+    fn sse_h(&self, tau: f64, h_mid: f64, form: Form) -> Option<f64> {
+        if h_mid <= 0.0 {
+            return None;
+        }
+        let shape = ReleaseShape::new(h_mid, form);
+        let t0 = self.t[0];
+        let mut m = [[0.0; 3]; 3];
+        let mut v = [0.0; 3];
+        for (&ti, &yi) in self.t.iter().zip(self.y) {
+            let basis = [1.0, ti - t0, shape.at(ti - tau)];
+            for a in 0..3 {
+                v[a] += basis[a] * yi;
+                for b in a..3 {
+                    m[a][b] += basis[a] * basis[b];
+                }
+            }
+        }
+        (m[1][0], m[2][0], m[2][1]) = (m[0][1], m[0][2], m[1][2]);
+        let c = super::solve_linear(m, v)?;
+        Some((self.syy - c[0] * v[0] - c[1] * v[1] - c[2] * v[2]).max(0.0))
+    }
+
+    /// The profile residual at tau, with the shape and the time scale h nuisance parameters:
+    /// the least over the shapes and over h. The measured peak rate fixes h = t_mid - tau for
+    /// the estimate, but a peak rate a little off trades against tau (and the shape against
+    /// h), and holding them fixed made the interval too narrow: it covered 0.58-0.73 of true
+    /// releases in `validate`. The least over h comes from a parabola through three time
+    /// scales 15 % apart.
+    fn profile(&self, tau: f64) -> f64 {
+        let h0 = self.t_mid_s - tau;
+        RELEASE_FORMS
             .iter()
-            .map(|&z| {
-                let f = |h: f64| sse_h(tau, h, z).unwrap_or(f64::INFINITY);
+            .map(|&form| {
+                let f = |h: f64| self.sse_h(tau, h, form).unwrap_or(f64::INFINITY);
                 let (lo, mid, hi) = (f(0.85 * h0), f(h0), f(1.15 * h0));
                 let curve = lo + hi - 2.0 * mid;
                 let mut least = lo.min(mid).min(hi);
@@ -237,19 +323,7 @@ fn spring_onset(
                 least
             })
             .fold(f64::INFINITY, f64::min)
-    };
-    let best = profile(tau);
-    // Five parameters besides the discrete shape: level, slope, size, joint and time scale.
-    let limit = super::profile_limit(best, tw.len(), 5);
-    let period = (tw[tw.len() - 1] - t0) / (tw.len() - 1) as f64;
-    let (lo, hi) = continuous_interval(
-        &profile,
-        tau,
-        0.05 * period,
-        0.5 * (tw[tw.len() - 1] - t0),
-        limit,
-    );
-    Some((tau, 0.5 * (hi - lo) / 1.96))
+    }
 }
 
 /// Ends of the interval about `x0` where the profile `f` stays at or under `limit`: on each
@@ -400,15 +474,258 @@ fn overdamped_end(t: &[f64], y: &[f64], t_mid_s: f64, crossing_s: f64) -> Option
     }
     let back_t: Vec<f64> = t[first..last].iter().rev().map(|v| -v).collect();
     let back_y: Vec<f64> = y[first..last].iter().rev().copied().collect();
-    let (joint, sd) = spring_onset(&back_t, &back_y, 0, back_t.len(), -t_mid_s, COARSE_JOINTS)?;
+    let (joint, sd, _) = spring_onset(&back_t, &back_y, 0, back_t.len(), -t_mid_s, COARSE_JOINTS)?;
     let end_s = -joint;
     (end_s > t_mid_s && end_s < t[last - 3]).then_some((end_s, sd))
 }
 
-/// Per-frame noise standard deviation of `y`, from the median absolute first difference.
-pub fn frame_noise_sigma(y: &[f64]) -> f64 {
-    let mut d: Vec<f64> = y.windows(2).map(|w| (w[1] - w[0]).abs()).collect();
-    super::MAD_TO_SIGMA * super::median_in_place(&mut d) / std::f64::consts::SQRT_2
+/// Whether the release fit also accepts `tau` as the release: its profile residual there stays
+/// under the 99.9 % large-sample limit, `least (1 + 10.83 / (n - 5))` (10.83 the chi-square(1)
+/// 99.9 % point). A click heard where the frames cannot have released disagrees with them; one
+/// heard where they could have is no clock mismatch, only a release the frames time poorly.
+pub fn release_fits(t: &[f64], y: &[f64], fit: &ReleaseFit, tau: f64) -> bool {
+    let Some(window) = OnsetWindow::new(t, y, fit.start, fit.end, fit.t_mid_s) else {
+        return false;
+    };
+    if tau <= window.t[0] || tau >= fit.t_mid_s {
+        return false;
+    }
+    let dof = window.t.len().saturating_sub(5).max(1) as f64;
+    window.profile(tau) <= fit.least_sse.max(1e-300) * (1.0 + 10.83 / dof)
+}
+
+/// Motion rates from averaged windows: at the boundary before frame b, the mean of frames
+/// b..b+w less the mean of frames b-w..b, over the difference of their mean times.
+struct Rates {
+    rate: Vec<f64>,
+    /// Time of each boundary (midway between its two frames).
+    mid: Vec<f64>,
+    /// Frame after the boundary of rate sample 0.
+    first: usize,
+}
+
+impl Rates {
+    fn new(t: &[f64], y: &[f64], w: usize) -> Option<Self> {
+        let n = y.len();
+        if n < 2 * w + 2 {
+            return None;
+        }
+        let (py, pt) = (Prefix::new(y), Prefix::new(t));
+        let boundaries = w..=n - w;
+        let rate = boundaries
+            .clone()
+            .map(|b| {
+                let dt = pt.mean(b, b + w) - pt.mean(b - w, b);
+                (py.mean(b, b + w) - py.mean(b - w, b)) / dt.max(1e-12)
+            })
+            .collect();
+        let mid = boundaries.map(|b| 0.5 * (t[b - 1] + t[b])).collect();
+        Some(Rates {
+            rate,
+            mid,
+            first: w,
+        })
+    }
+
+    /// Rate sample of the boundary before frame `b`, clamped to the samples there are.
+    fn sample_at_frame(&self, b: usize) -> usize {
+        b.saturating_sub(self.first).min(self.rate.len() - 1)
+    }
+
+    /// First sample, walking back from `from` (no further than `floor`), of the run whose signed
+    /// rate keeps above `level`.
+    fn run_start(&self, from: usize, floor: usize, s: f64, level: f64) -> usize {
+        let mut j = from;
+        while j > floor && s * self.rate[j - 1] > level {
+            j -= 1;
+        }
+        j
+    }
+
+    /// Time at which the signed rate, walking back from the peak sample `from`, first falls
+    /// under `level`, interpolated between samples.
+    fn rise_crossing(&self, from: usize, s: f64, level: f64) -> f64 {
+        let j = self.run_start(from, 0, s, level);
+        if j == 0 {
+            return self.mid[0];
+        }
+        let (r0, r1) = (s * self.rate[j - 1], s * self.rate[j]);
+        let f = ((level - r0) / (r1 - r0)).clamp(0.0, 1.0);
+        self.mid[j - 1] + f * (self.mid[j] - self.mid[j - 1])
+    }
+
+    /// Time at which the rate, after the peak sample `from`, falls back through `level` and
+    /// stays under it for three samples (one noisy dip is not the end).
+    fn fall_crossing(&self, from: usize, s: f64, level: f64) -> f64 {
+        let (rate, mid) = (&self.rate, &self.mid);
+        let mut k = from;
+        while k + 1 < rate.len()
+            && rate[k + 1..(k + 4).min(rate.len())]
+                .iter()
+                .any(|r| s * r > level)
+        {
+            k += 1;
+        }
+        if k + 1 < rate.len() {
+            let (r0, r1) = (s * rate[k], s * rate[k + 1]);
+            let f = ((r0 - level) / (r0 - r1)).clamp(0.0, 1.0);
+            mid[k] + f * (mid[k + 1] - mid[k])
+        } else {
+            mid[k]
+        }
+    }
+}
+
+/// A peak of the trace: the frame, the refined time and value, and the time's standard
+/// uncertainty.
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct Peak {
+    index: usize,
+    time_s: f64,
+    value: f64,
+    sd_s: f64,
+}
+
+/// Share of each side's swing (the rise before the peak, the fall to the first trough after it)
+/// over which a peak is taken to be a parabola: on a cosine cap a drop of 15 % of the swing is
+/// 0.8 rad of phase, where the parabola's curvature is off by about 5 %.
+const PEAK_SIDE_SHARE: f64 = 0.15;
+
+/// The data's own extremum (direction `s`) near frame `k`: the best frame within `w` of it,
+/// refined by [`two_sided_vertex`] over the frames on each side within a drop of the larger of
+/// four noise standard deviations and [`PEAK_SIDE_SHARE`] of that side's swing (`rise`
+/// before; the fall to the first trough after).
+fn refine_peak(t: &[f64], y: &[f64], k: usize, w: usize, s: f64, rise: f64, sigma: f64) -> Peak {
+    let n = y.len();
+    let (lo, hi) = (k.saturating_sub(w), (k + w).min(n - 1));
+    let k = (lo..=hi)
+        .max_by(|&a, &b| (s * y[a]).total_cmp(&(s * y[b])))
+        .unwrap_or(k);
+    let reach = (2 * w).max(8) * 8;
+    let fall = first_trough_depth(y, k, s, reach, sigma);
+    let drop_before = (4.0 * sigma).max(PEAK_SIDE_SHARE * rise.abs());
+    let drop_after = (4.0 * sigma).max(PEAK_SIDE_SHARE * fall);
+    let mut a = k;
+    while a > 0 && k - a < 256 && s * (y[k] - y[a - 1]) <= drop_before {
+        a -= 1;
+    }
+    let mut b = k;
+    while b + 1 < n && b - k < 256 && s * (y[k] - y[b + 1]) <= drop_after {
+        b += 1;
+    }
+    let (a, b) = (a.min(k.saturating_sub(2)), b.max((k + 2).min(n - 1)));
+    let period = (t[n - 1] - t[0]) / (n - 1).max(1) as f64;
+    let fitted = (b + 1 - a >= 5)
+        .then(|| two_sided_vertex(&t[a..=b], &y[a..=b], s))
+        .flatten();
+    let (time_s, value, sd_s) = match fitted {
+        Some(v) => v,
+        None => {
+            let (tp, yp) = super::refine_extremum(t, y, k);
+            (tp, yp, super::vertex_sd(t, y, k, sigma))
+        }
+    };
+    Peak {
+        index: t.partition_point(|v| *v < time_s).min(n - 1),
+        time_s,
+        value,
+        sd_s: sd_s.clamp(0.05 * period, 4.0 * period),
+    }
+}
+
+/// Depth of the first trough after the peak at frame `k` (direction `s`), within `reach`
+/// frames: the trace's running minimum until it climbs back by six noise standard deviations
+/// or a fifth of the depth so far.
+fn first_trough_depth(y: &[f64], k: usize, s: f64, reach: usize, sigma: f64) -> f64 {
+    let top = s * y[k];
+    let mut low = top;
+    for v in y.iter().skip(k + 1).take(reach) {
+        let v = s * v;
+        low = low.min(v);
+        if v - low > (6.0 * sigma).max(0.2 * (top - low)) {
+            break;
+        }
+    }
+    top - low
+}
+
+/// Least-squares fit of y = c + a_l (t - tp)^2 [t < tp] + a_r (t - tp)^2 [t >= tp] to the
+/// frames `t`, `y` (both curvatures of the sign that makes a peak in direction `s`): the rise
+/// and the fall of a peak each get their own curvature. The vertex tp is sought over the inner
+/// frames, then refined between frames by golden-section search. Returns tp, the value there
+/// and tp's standard uncertainty (the 95 % profile-likelihood half-width over 1.96).
+fn two_sided_vertex(t: &[f64], y: &[f64], s: f64) -> Option<(f64, f64, f64)> {
+    let m = t.len();
+    if m < 5 {
+        return None;
+    }
+    let fit = |tp: f64| -> Option<(f64, f64)> {
+        let mut m = [[0.0; 3]; 3];
+        let mut v = [0.0; 3];
+        for (&ti, &yi) in t.iter().zip(y) {
+            let h = (ti - tp) * (ti - tp);
+            let basis = if ti < tp {
+                [1.0, h, 0.0]
+            } else {
+                [1.0, 0.0, h]
+            };
+            for p in 0..3 {
+                v[p] += basis[p] * yi;
+                for q in 0..3 {
+                    m[p][q] += basis[p] * basis[q];
+                }
+            }
+        }
+        let c = super::solve_linear(m, v)?;
+        let sse: f64 = t
+            .iter()
+            .zip(y)
+            .map(|(&ti, &yi)| {
+                let h = (ti - tp) * (ti - tp);
+                let model = c[0] + if ti < tp { c[1] * h } else { c[2] * h };
+                (yi - model).powi(2)
+            })
+            .sum();
+        // A vertex must be a peak in the direction of the motion on both sides.
+        (s * c[1] <= 0.0 && s * c[2] <= 0.0).then_some((sse, c[0]))
+    };
+    let sse = |tp: f64| fit(tp).map_or(f64::INFINITY, |f| f.0);
+    let k = (1..m - 1).min_by(|&a, &b| sse(t[a]).total_cmp(&sse(t[b])))?;
+    let tp = golden_min(t[k - 1], t[k + 1], sse);
+    let (least, value) = fit(tp)?;
+    let limit = super::profile_limit(least, t.len(), 4);
+    let period = (t[t.len() - 1] - t[0]) / (t.len() - 1) as f64;
+    let (lo, hi) = continuous_interval(&sse, tp, 0.02 * period, 2.0 * period, limit);
+    Some((tp, value, 0.5 * (hi - lo) / 1.96))
+}
+
+/// End of the fast phase and its standard uncertainty: the peak when the motion runs straight
+/// into it (the peak comes within three frames, or half the fall from the peak rate, of the
+/// rate's fall through its level), else the backward release fit from the rest.
+fn fast_phase_end(
+    t: &[f64],
+    y: &[f64],
+    peak: Option<&Peak>,
+    t_mid_s: f64,
+    crossing_s: f64,
+    longest_s: f64,
+) -> (f64, f64) {
+    let n = t.len();
+    let period = (t[n - 1] - t[0]) / (n - 1).max(1) as f64;
+    if let Some(p) = peak {
+        if p.time_s - crossing_s <= (3.0 * period).max(0.5 * (crossing_s - t_mid_s)) {
+            return (p.time_s, p.sd_s);
+        }
+    }
+    // A phase whose fall from the peak rate alone outlasts the longest release is no release,
+    // and the fit over its hundreds of frames would cost milliseconds.
+    let fitted = (crossing_s - t_mid_s <= longest_s)
+        .then(|| overdamped_end(t, y, t_mid_s, crossing_s))
+        .flatten();
+    match fitted {
+        Some((end_s, sd_s)) => (end_s, sd_s.max(0.05 * period)),
+        None => (crossing_s, period / 12f64.sqrt()),
+    }
 }
 
 /// Finds the fast phase in (t, y), or `None` when there is no abrupt change (a failed trigger).
@@ -423,182 +740,222 @@ pub fn detect_release(
     if n < 8 {
         return None;
     }
-    // Smallest window over which the largest change is clearly more than noise: eight noise
-    // standard deviations clear of the largest that noise alone reaches over the series
-    // (about sqrt(2 ln n) of them). Over tens of thousands of frames a noise spike in the rate
-    // can otherwise outgrow a release spread over hundreds of frames. Windows run to 1024
-    // frames: a 6 ms release at 100k fps moves less than that clearance in 64.
-    let diff_sigma = (noise_sigma * std::f64::consts::SQRT_2).max(f64::MIN_POSITIVE);
-    let clear_sigma = MIN_WINDOW_SIGMA + (2.0 * (n as f64).ln()).sqrt();
-    let w = (0..11)
-        .map(|p| 1usize << p)
-        .take_while(|w| *w <= n / 8)
-        .find(|&w| {
-            let biggest = (0..n - w).fold(0.0f64, |m, i| m.max((y[i + w] - y[i]).abs()));
-            biggest >= clear_sigma * diff_sigma
-        })?;
-    let rate: Vec<f64> = (0..n - w)
-        .map(|i| (y[i + w] - y[i]) / (t[i + w] - t[i]).max(1e-12))
-        .collect();
-    let mid: Vec<f64> = (0..n - w).map(|i| 0.5 * (t[i] + t[i + w])).collect();
-    let (i_max, peak_rate) = rate
-        .iter()
-        .copied()
-        .enumerate()
-        .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))?;
-    let s = peak_rate.signum();
-    let peak = peak_rate.abs();
-    if peak == 0.0 {
+    let longest_s = config.max_release_ms * 1e-3;
+    let max_frames = ((longest_s / period_s).ceil() as usize).max(3);
+    let phase = locate_fast_phase(y, noise_sigma, max_frames)?;
+    let s = phase.direction;
+    let w = rate_scale(y, &phase, noise_sigma);
+    let rates = Rates::new(t, y, w)?;
+    let from = rates.sample_at_frame(phase.held_index + 1);
+    let to = rates.sample_at_frame(phase.top_index).max(from);
+    let i_max = (from..=to).max_by(|&a, &b| (s * rates.rate[a]).total_cmp(&(s * rates.rate[b])))?;
+    let peak_rate = rates.rate[i_max];
+    let peak = s * peak_rate;
+    if peak <= 0.0 {
         return None;
     }
     let level = config.rate_fraction * peak;
-
-    let mut j = i_max;
-    while j > 0 && s * rate[j - 1] > level {
-        j -= 1;
-    }
-    // Rising edge: back from the peak rate to where the rate first reaches 70 % of it.
-    let mut e = i_max;
-    while e > j && s * rate[e - 1] >= 0.7 * peak {
-        e -= 1;
-    }
-    let quantisation_sd = period_s / 12f64.sqrt();
-    let pre_release_index = j.saturating_sub(1).min(n - 1);
-    let start_value = y[pre_release_index];
-
-    // The hysteresis must outgrow the range that noise alone spans over the frames after the
-    // peak rate (about 2 sqrt(2 ln n) standard deviations): at 100k fps an overdamped release
-    // is followed by tens of thousands of flat frames, and a fixed 8 sd was crossed by noise,
-    // which made a late "overshoot" out of it and lost the release.
-    let after = (n - i_max).max(2) as f64;
-    let delta_floor = 8.0f64.max(2.0 * (2.0 * after.ln()).sqrt() + 1.0) * noise_sigma;
-    let mut ext_idx = (i_max + w).min(n - 1);
-    let mut ext = s * y[ext_idx];
-    let mut overshoot = false;
-    for (i, v) in y.iter().enumerate().skip(ext_idx + 1) {
-        let sv = s * v;
-        if sv > ext {
-            ext = sv;
-            ext_idx = i;
-        } else {
-            let delta = delta_floor.max(0.05 * (ext - s * start_value).abs());
-            if ext - sv > delta {
-                overshoot = true;
-                break;
-            }
-        }
-    }
-    let mut motion_peak_sd_s = quantisation_sd;
-    let t_mid = peak_rate_time(&rate, &mid, s, i_max);
-    let (motion_peak_s, motion_peak_value, motion_peak_index) = if overshoot {
-        let (tp, yp) = super::refine_extremum(t, y, ext_idx);
-        motion_peak_sd_s =
-            super::vertex_sd(t, y, ext_idx, noise_sigma).clamp(0.05 * period_s, period_s);
-        (tp, yp, ext_idx)
-    } else {
-        // Overdamped: the end of the fast phase is where the rate falls back through the level.
-        // The rate must stay under the level for three samples: one noisy dip is not the end.
-        let mut k = i_max;
-        while k + 1 < rate.len()
-            && rate[k + 1..(k + 4).min(rate.len())]
-                .iter()
-                .any(|r| s * r > level)
-        {
-            k += 1;
-        }
-        let crossing_s = if k + 1 < rate.len() {
-            let (r0, r1) = (s * rate[k], s * rate[k + 1]);
-            let f = ((r0 - level) / (r0 - r1)).clamp(0.0, 1.0);
-            mid[k] + f * (mid[k + 1] - mid[k])
-        } else {
-            mid[k]
-        };
-        // A phase whose fall from the peak rate alone outlasts the longest release is no
-        // release (a failed trigger relaxing, say): it is thrown out below as too slow, and the
-        // fit over its hundreds of frames would cost milliseconds.
-        let too_slow = crossing_s - t_mid > config.max_release_ms * 1e-3;
-        let fitted = if too_slow {
-            None
-        } else {
-            overdamped_end(t, y, t_mid, crossing_s)
-        };
-        let end_s = match fitted {
-            Some((end_s, sd_s)) => {
-                motion_peak_sd_s = sd_s.max(0.05 * period_s);
-                end_s
-            }
-            None => crossing_s,
-        };
-        let idx = t.partition_point(|v| *v < end_s).min(n - 1);
-        (end_s, y[idx], idx)
-    };
-    // Every release candidate below lies at or before the peak rate, so a motion peak this
-    // far after it is too slow whatever the release: stop before the fit, whose window would
-    // span the hundreds of frames of a failed trigger's relaxation.
-    if motion_peak_s - mid[i_max] > config.max_release_ms * 1e-3 {
+    let t_mid = peak_rate_time(&rates.rate, &rates.mid, s, i_max);
+    let crossing_s = rates.fall_crossing(i_max, s, level);
+    let top = phase.turns.then(|| {
+        refine_peak(
+            t,
+            y,
+            phase.top_index,
+            phase.scale,
+            s,
+            phase.size,
+            noise_sigma,
+        )
+    });
+    let (end_s, end_sd_s) = fast_phase_end(t, y, top.as_ref(), t_mid, crossing_s, longest_s);
+    if end_s - rates.mid[i_max] > longest_s {
         return None;
     }
-    // The window reaches 3 rising edges (at least 12 frames) before the edge's end, and
-    // at least 2.5 times the peak-rate-to-motion-peak time before the peak rate: the rate's
-    // 10 % crossing that bounds the edge is noisy at high frame rates, where it can fall long
-    // after the release.
-    let edge = e.saturating_sub(j);
-    let reach_s = t_mid - 2.5 * (motion_peak_s - t_mid).max(0.0);
-    let fit_start = (e + w)
-        .saturating_sub((3 * edge).max(12))
-        .min(t.partition_point(|v| *v < reach_s));
-    // With three or more frames on the rising edge the fit ends at the peak rate (the
-    // inflection), where a real spring's motion still follows 1 - cos closely; with fewer it
-    // needs the frames up to the motion peak to have enough on the curve.
-    let fit_end = if e >= j + 3 {
-        i_max + w / 2 + 1
-    } else {
-        motion_peak_index + 1
+    let end_index = t.partition_point(|v| *v < end_s).min(n - 1);
+    let (peak_s, peak_sd_s, peak_value, peak_index) = match &top {
+        Some(p) => (p.time_s, p.sd_s, p.value, p.index),
+        None => (end_s, end_sd_s, y[end_index], end_index),
     };
-    // A fit that ends on the first frames of its window found no joint there.
-    let fitted = spring_onset(t, y, fit_start, fit_end, t_mid, COARSE_JOINTS)
-        .filter(|(r, _)| *r > t[(fit_start + 2).min(n - 1)] && *r <= mid[e]);
-    let (release_s, release_sd_s) = fitted
-        .map(|(r, sd)| (r, sd.max(0.05 * period_s)))
-        .or_else(|| {
-            edge_crossing(&rate[..=i_max], &mid[..=i_max], s, peak, level)
-                .filter(|r| {
-                    *r >= mid[j.saturating_sub(1)] - 2.0 * w as f64 * period_s && *r <= mid[i_max]
-                })
-                .map(|r| (r, quantisation_sd))
-        })
-        .unwrap_or_else(|| {
-            if j == 0 {
-                (mid[0], quantisation_sd)
-            } else {
-                let (r0, r1) = (s * rate[j - 1], s * rate[j]);
-                let f = ((level - r0) / (r1 - r0)).clamp(0.0, 1.0);
-                let dt = mid[j] - mid[j - 1];
-                // Rate noise moves the crossing by (rate noise) / (rate slope).
-                let rate_noise = noise_sigma * std::f64::consts::SQRT_2 / (w as f64 * period_s);
-                let slope = ((r1 - r0) / dt).abs().max(f64::MIN_POSITIVE);
-                let sd = quantisation_sd.hypot(rate_noise / slope).min(dt);
-                (mid[j - 1] + f * dt, sd)
-            }
-        });
-    let jump = motion_peak_value - start_value;
-    let too_slow = motion_peak_s - release_s > config.max_release_ms * 1e-3;
-    if jump.abs() < config.min_jump_sigma * noise_sigma || motion_peak_s <= release_s || too_slow {
+    let start = ReleaseStart::find(
+        t,
+        y,
+        &rates,
+        &phase,
+        i_max,
+        t_mid,
+        peak_index,
+        noise_sigma,
+        config,
+    )?;
+    let pre_release_index = t
+        .partition_point(|v| *v < start.release_s)
+        .saturating_sub(1);
+    let held = Prefix::new(y).mean(
+        pre_release_index.saturating_sub(w - 1),
+        pre_release_index + 1,
+    );
+    let jump = peak_value - held;
+    let too_slow = end_s - start.release_s > longest_s;
+    if jump.abs() < config.min_jump_sigma * noise_sigma || end_s <= start.release_s || too_slow {
         return None;
     }
     Some(MotionEvents {
-        release_s,
+        release_s: start.release_s,
         pre_release_index,
-        motion_peak_s,
-        motion_peak_index,
-        motion_peak_value,
+        motion_peak_s: peak_s,
+        motion_peak_index: peak_index,
+        motion_peak_value: peak_value,
         direction: s,
         peak_rate_per_s: peak_rate,
         jump,
-        overshoot,
-        release_sd_s,
-        motion_peak_sd_s,
+        overshoot: top.is_some(),
+        release_sd_s: start.sd_s,
+        motion_peak_sd_s: peak_sd_s,
+        fast_phase_end_s: end_s,
+        fast_phase_end_sd_s: end_sd_s,
+        release_rate_share: start.rate_share,
+        fit: start.fit,
     })
+}
+
+/// The start of the fast phase.
+struct ReleaseStart {
+    release_s: f64,
+    sd_s: f64,
+    /// Rate at the release over the peak rate.
+    rate_share: f64,
+    fit: Option<ReleaseFit>,
+}
+
+impl ReleaseStart {
+    /// The release fit over the frames before the peak rate (see the module notes), with the
+    /// rate's crossing of `rate_fraction` of its peak when no fit holds.
+    #[allow(clippy::too_many_arguments)] // reason: the phase's pieces, each used once here
+    fn find(
+        t: &[f64],
+        y: &[f64],
+        rates: &Rates,
+        phase: &FastPhase,
+        i_max: usize,
+        t_mid: f64,
+        peak_index: usize,
+        sigma: f64,
+        config: &ReleaseConfig,
+    ) -> Option<Self> {
+        let n = y.len();
+        let s = phase.direction;
+        let w = rates.first;
+        let peak = s * rates.rate[i_max];
+        let level = config.rate_fraction * peak;
+        let j = rates.run_start(i_max, 0, s, level);
+        let e = rates.run_start(i_max, j, s, 0.7 * peak);
+        let period = (t[n - 1] - t[0]) / (n - 1) as f64;
+        let quantisation_sd = period / 12f64.sqrt();
+        // The window reaches 3 rising edges (at least 12 frames) before the edge's end, and
+        // at least 2.5 times the peak-rate-to-peak time before the peak rate: the rate's 10 %
+        // crossing that bounds the edge is noisy at high frame rates.
+        let edge_frame = e + w;
+        let reach_s = t_mid - 2.5 * (t[peak_index] - t_mid).max(0.0);
+        let mut fit_start = edge_frame
+            .saturating_sub((3 * (e - j)).max(12))
+            .min(t.partition_point(|v| *v < reach_s));
+        // With three or more rate samples on the rising edge the fit ends at the peak rate (the
+        // inflection), where a real spring still follows 1 - cos closely; with fewer it needs
+        // the frames up to the motion peak.
+        let fit_end = if e >= j + 3 {
+            t.partition_point(|v| *v <= rates.mid[i_max])
+        } else {
+            peak_index + 1
+        };
+        let mut fitted = None;
+        for _ in 0..3 {
+            let Some((r, sd, least)) = spring_onset(t, y, fit_start, fit_end, t_mid, COARSE_JOINTS)
+            else {
+                break;
+            };
+            if r > rates.mid[e] {
+                break;
+            }
+            if r > t[(fit_start + 2).min(n - 1)] {
+                fitted = Some((r, sd, least));
+                break;
+            }
+            // A joint on the window's guard: the window did not reach back to the held state.
+            if fit_start == 0 {
+                break;
+            }
+            fit_start = fit_start.saturating_sub(edge_frame.saturating_sub(fit_start).max(8));
+        }
+        let rate_noise = sigma * (2.0 / w as f64).sqrt() / (w as f64 * period);
+        let (release_s, sd_s, fit) = match fitted {
+            Some((r, sd, least)) => {
+                let fit = ReleaseFit {
+                    start: fit_start,
+                    end: fit_end,
+                    t_mid_s: t_mid,
+                    least_sse: least,
+                };
+                (r, sd.max(0.05 * period), Some(fit))
+            }
+            None => {
+                let r = edge_crossing(&rates.rate[..=i_max], &rates.mid[..=i_max], s, peak, level)
+                    .filter(|r| *r >= rates.mid[j.saturating_sub(1)] - 2.0 * w as f64 * period)
+                    .filter(|r| *r <= rates.mid[i_max])
+                    .unwrap_or_else(|| rates.rise_crossing(i_max, s, level));
+                // Rate noise moves the crossing by (rate noise) / (rate slope).
+                let slope = peak / (t_mid - r).max(period);
+                (r, quantisation_sd.hypot(rate_noise / slope), None)
+            }
+        };
+        let spread = creep_spread_s(rates, i_max, s, rate_noise, t_mid - release_s);
+        let k = rates.sample_at_frame(t.partition_point(|v| *v < release_s));
+        Some(ReleaseStart {
+            release_s,
+            sd_s: sd_s.hypot(spread),
+            rate_share: (s * rates.rate[k] / peak).clamp(-1.0, 1.0),
+            fit,
+        })
+    }
+}
+
+/// Width of the rate windows, frames: the smallest power of two, from the phase's own smoothing
+/// width, at which the largest difference of window means inside the phase stands clear of
+/// noise by eight standard deviations plus the extreme that noise reaches over the phase
+/// (sqrt(2 ln m) of them for m boundaries). At tens of thousands of frames a second one frame
+/// moves little, and single-frame rates are noise.
+fn rate_scale(y: &[f64], phase: &FastPhase, sigma: f64) -> usize {
+    let prefix = Prefix::new(y);
+    let (a, b) = (phase.held_index, phase.top_index.max(phase.held_index + 1));
+    let clear = 8.0 + (2.0 * ((b - a) as f64).max(2.0).ln()).sqrt();
+    let mut w = phase.scale.max(1);
+    while 2 * w <= (b - a).max(2) {
+        let largest = (a + w..=b.min(y.len() - w))
+            .map(|k| (prefix.mean(k, k + w) - prefix.mean(k - w, k)).abs())
+            .fold(0.0f64, f64::max);
+        if largest >= clear * sigma * (2.0 / w as f64).sqrt() {
+            break;
+        }
+        w *= 2;
+    }
+    w
+}
+
+/// Definitional spread of a release, seconds: how much longer the rate takes to rise from 5 %
+/// of its peak (or the lowest share three rate-noise standard deviations allow) to 25 % than a
+/// spring let go from rest takes, whose speed rises as sin(pi h / (2 h_mid)): a latch that
+/// creeps rises slowly there, and where in that rise "the release" lies is a matter of
+/// definition. Half that excess is taken as a standard uncertainty.
+fn creep_spread_s(rates: &Rates, i_max: usize, s: f64, rate_noise: f64, h_mid_s: f64) -> f64 {
+    let peak = s * rates.rate[i_max];
+    let low = (3.0 * rate_noise / peak).max(0.05);
+    if low >= 0.25 || h_mid_s <= 0.0 {
+        return 0.0;
+    }
+    let measured =
+        rates.rise_crossing(i_max, s, 0.25 * peak) - rates.rise_crossing(i_max, s, low * peak);
+    let spring = 2.0 * h_mid_s / std::f64::consts::PI * (0.25f64.asin() - low.asin());
+    0.5 * (measured - spring).max(0.0)
 }
 
 #[cfg(test)]
@@ -778,7 +1135,7 @@ mod tests {
                     100.0 + rise + noise.sample(&mut rng)
                 })
                 .collect();
-            let sigma = frame_noise_sigma(&y);
+            let sigma = super::super::trace::noise_sigma(&y, 0.0);
             let config = ReleaseConfig::default();
             let ev = detect_release(&t, &y, 1.0 / fps, sigma, &config)
                 .unwrap_or_else(|| panic!("seed {seed}: no release"));
