@@ -84,8 +84,14 @@ pub struct SyncCheck {
     pub acoustic_delay_ms: f64,
     /// Observed offset minus the rig's `video_offset_s`, ms.
     pub residual_ms: f64,
-    /// Largest |residual_ms| accepted, ms.
+    /// Largest |residual_ms| accepted, ms: `hypot(max(sync_tolerance_frames x frame
+    /// period, sync_tolerance_min_ms), 3 x latch_release_video_sd_ms)`.
     pub tolerance_ms: f64,
+    /// Whether the frames allow the release time the click gives: not after the motion has
+    /// visibly left the held state, nor long before it (see the README); null without a click
+    /// or a release.
+    #[serde(default)]
+    pub frames_accept_click: Option<bool>,
 }
 
 pub use crate::detect::oscillation::Oscillation;
@@ -274,17 +280,25 @@ pub fn measure(
                 record.motion_peak_s = Some(m.motion_peak_s);
                 record.motion_peak_sd_ms = Some(m.motion_peak_sd_s * 1e3);
                 if let Some(click_s) = record.click_onset_s {
-                    let tolerance_s =
+                    // The frame timing's share, and three standard uncertainties of the video
+                    // release: a release the frames time poorly widens what counts as agreement.
+                    let frame_s =
                         (rig.sync_tolerance_frames * period).max(rig.sync_tolerance_min_ms * 1e-3);
+                    let tolerance_s = frame_s.hypot(3.0 * m.release_sd_s);
                     let offset_s = click_s - delay_s - m.release_s;
                     let residual_s = offset_s - rig.video_offset_s;
+                    // Beyond the tolerance, the frames are asked whether the release could lie
+                    // where the click puts it; if so the clocks agree and the video release was
+                    // only poorly timed.
+                    let frames_accept = video.click_fits_frames == Some(true);
                     record.sync = Some(SyncCheck {
                         offset_ms: offset_s * 1e3,
                         acoustic_delay_ms: delay_s * 1e3,
                         residual_ms: residual_s * 1e3,
                         tolerance_ms: tolerance_s * 1e3,
+                        frames_accept_click: video.click_fits_frames,
                     });
-                    if residual_s.abs() > tolerance_s {
+                    if residual_s.abs() > tolerance_s && !frames_accept {
                         flags.push(Flag::SyncMismatch);
                     } else if record
                         .motion_peak_s
@@ -402,7 +416,8 @@ mod tests {
                 fast_phase_end_s: 0.104,
                 fast_phase_end_sd_s: 0.1e-3,
                 release_rate_share: 0.0,
-                fit: None,
+                departure_s: 0.1,
+                earliest_release_s: 0.1,
             }),
             loading: Some(crate::detect::loading::LoadingOnset {
                 onset_s: 0.016,
@@ -413,6 +428,7 @@ mod tests {
                 f_statistic: 100.0,
             }),
             oscillation: Some(from_ratio(50.0, 0.63, 5)),
+            click_fits_frames: None,
         };
         let mut rig = RigProfile::default();
         let mut r = TrialRecord::empty("t", None);

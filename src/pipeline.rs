@@ -86,7 +86,7 @@ fn try_analyze(
     if audio.is_none() && frames.is_none() {
         return Err(Error::Usage(format!("trial {}: no inputs", spec.name)));
     }
-    let video_events = frames.as_ref().map(|f| detect::detect_video(f, rig));
+    let mut video_events = frames.as_ref().map(|f| detect::detect_video(f, rig));
     let expected = video_events
         .as_ref()
         .and_then(|v| detect::expected_click(v, rig));
@@ -96,6 +96,9 @@ fn try_analyze(
             a.sample_rate_hz,
         )
     });
+    if let (Some(v), Some((a, _))) = (video_events.as_mut(), &audio_events) {
+        detect::check_click_against_frames(v, a, rig);
+    }
     let mut record = TrialRecord::empty(&spec.name, spec.group.as_deref());
     measure::measure(
         &mut record,

@@ -257,7 +257,8 @@ mod tests {
             fast_phase_end_s: 0.105,
             fast_phase_end_sd_s: 0.1e-3,
             release_rate_share: 0.0,
-            fit: None,
+            departure_s: 0.1,
+            earliest_release_s: 0.1,
         };
         let video = VideoEvents {
             clock: clock::FrameClock {
@@ -272,6 +273,7 @@ mod tests {
             motion: Some(motion),
             loading: None,
             oscillation: None,
+            click_fits_frames: None,
         };
         let e = expected_click(&video, &rig).unwrap();
         let at = 0.102;
@@ -408,6 +410,10 @@ pub struct VideoEvents {
     pub motion: Option<release::MotionEvents>,
     pub loading: Option<loading::LoadingOnset>,
     pub oscillation: Option<oscillation::Oscillation>,
+    /// Whether the frames also accept, as the release, the time the main click puts it at
+    /// ([`check_click_against_frames`]); `None` until checked, or when no fit can say.
+    #[serde(default)]
+    pub click_fits_frames: Option<bool>,
 }
 
 impl From<&RigProfile> for click::ClickConfig {
@@ -653,5 +659,22 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
         motion,
         loading,
         oscillation,
+        click_fits_frames: None,
     }
+}
+
+/// Asks the frames whether the release could lie where the main click puts it (the clock
+/// relation applied backwards): before a clock mismatch is flagged, a video release that the
+/// frames time poorly must be told from clocks that disagree. Sets
+/// `video.click_fits_frames`.
+pub fn check_click_against_frames(video: &mut VideoEvents, audio: &AudioEvents, rig: &RigProfile) {
+    let (Some(m), Some(click)) = (video.motion.as_ref(), audio.main()) else {
+        return;
+    };
+    let implied_s = click.onset_s - rig.acoustic_delay_s() - rig.video_offset_s;
+    video.click_fits_frames = Some(release::frames_allow_release_at(
+        m,
+        video.clock.period_s,
+        implied_s,
+    ));
 }

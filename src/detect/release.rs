@@ -93,19 +93,14 @@ pub struct MotionEvents {
     pub fast_phase_end_sd_s: f64,
     /// Rate at the release over the peak rate.
     pub release_rate_share: f64,
-    /// The frames and settings of the release fit, to ask later whether another release time
-    /// (the click's) fits them too.
-    #[serde(skip)]
-    pub fit: Option<ReleaseFit>,
-}
-
-/// The frames of a release fit and its least residual.
-#[derive(Debug, Clone, PartialEq)]
-pub struct ReleaseFit {
-    pub start: usize,
-    pub end: usize,
-    pub t_mid_s: f64,
-    pub least_sse: f64,
+    /// When the motion has visibly left the held state: where the rate, walking back from its
+    /// peak, falls under `rate_fraction` of the peak or four rate-noise standard deviations,
+    /// whichever is higher. Seconds, video clock.
+    pub departure_s: f64,
+    /// Earliest release the frames allow under the gentlest start considered, a speed growing
+    /// as (t - t0)^3: extrapolated back from where the rate rises through 10 % and 40 % of its
+    /// peak, (t40 - t0) / (t10 - t0) = 4^(1/3). Seconds, video clock.
+    pub earliest_release_s: f64,
 }
 
 /// The release shapes tried: a spring-mass system let go from rest, damping ratio 0 (1 - cos),
@@ -479,19 +474,16 @@ fn overdamped_end(t: &[f64], y: &[f64], t_mid_s: f64, crossing_s: f64) -> Option
     (end_s > t_mid_s && end_s < t[last - 3]).then_some((end_s, sd))
 }
 
-/// Whether the release fit also accepts `tau` as the release: its profile residual there stays
-/// under the 99.9 % large-sample limit, `least (1 + 10.83 / (n - 5))` (10.83 the chi-square(1)
-/// 99.9 % point). A click heard where the frames cannot have released disagrees with them; one
-/// heard where they could have is no clock mismatch, only a release the frames time poorly.
-pub fn release_fits(t: &[f64], y: &[f64], fit: &ReleaseFit, tau: f64) -> bool {
-    let Some(window) = OnsetWindow::new(t, y, fit.start, fit.end, fit.t_mid_s) else {
-        return false;
-    };
-    if tau <= window.t[0] || tau >= fit.t_mid_s {
-        return false;
-    }
-    let dof = window.t.len().saturating_sub(5).max(1) as f64;
-    window.profile(tau) <= fit.least_sse.max(1e-300) * (1.0 + 10.83 / dof)
+/// Whether the frames could have released at `tau` (say, where the click puts the release):
+/// not after the motion has visibly left the held state ([`MotionEvents::departure_s`]; two
+/// frames' grace), and not before the gentlest start the frames allow
+/// ([`MotionEvents::earliest_release_s`], less three standard uncertainties of the release and
+/// two frames). A model-free test on purpose: a release fit that took the wrong shape must not
+/// turn its own error into a clock mismatch.
+pub fn frames_allow_release_at(m: &MotionEvents, period_s: f64, tau: f64) -> bool {
+    let latest = m.departure_s.max(m.release_s) + 2.0 * period_s;
+    let earliest = m.earliest_release_s - 3.0 * m.release_sd_s - 2.0 * period_s;
+    (earliest..=latest).contains(&tau)
 }
 
 /// Motion rates from averaged windows: at the boundary before frame b, the mean of frames
@@ -815,7 +807,8 @@ pub fn detect_release(
         fast_phase_end_s: end_s,
         fast_phase_end_sd_s: end_sd_s,
         release_rate_share: start.rate_share,
-        fit: start.fit,
+        departure_s: start.departure_s,
+        earliest_release_s: start.earliest_s,
     })
 }
 
@@ -825,7 +818,8 @@ struct ReleaseStart {
     sd_s: f64,
     /// Rate at the release over the peak rate.
     rate_share: f64,
-    fit: Option<ReleaseFit>,
+    departure_s: f64,
+    earliest_s: f64,
 }
 
 impl ReleaseStart {
@@ -870,7 +864,7 @@ impl ReleaseStart {
         };
         let mut fitted = None;
         for _ in 0..3 {
-            let Some((r, sd, least)) = spring_onset(t, y, fit_start, fit_end, t_mid, COARSE_JOINTS)
+            let Some((r, sd, _)) = spring_onset(t, y, fit_start, fit_end, t_mid, COARSE_JOINTS)
             else {
                 break;
             };
@@ -878,7 +872,7 @@ impl ReleaseStart {
                 break;
             }
             if r > t[(fit_start + 2).min(n - 1)] {
-                fitted = Some((r, sd, least));
+                fitted = Some((r, sd));
                 break;
             }
             // A joint on the window's guard: the window did not reach back to the held state.
@@ -888,16 +882,8 @@ impl ReleaseStart {
             fit_start = fit_start.saturating_sub(edge_frame.saturating_sub(fit_start).max(8));
         }
         let rate_noise = sigma * (2.0 / w as f64).sqrt() / (w as f64 * period);
-        let (release_s, sd_s, fit) = match fitted {
-            Some((r, sd, least)) => {
-                let fit = ReleaseFit {
-                    start: fit_start,
-                    end: fit_end,
-                    t_mid_s: t_mid,
-                    least_sse: least,
-                };
-                (r, sd.max(0.05 * period), Some(fit))
-            }
+        let (release_s, sd_s) = match fitted {
+            Some((r, sd)) => (r, sd.max(0.05 * period)),
             None => {
                 let r = edge_crossing(&rates.rate[..=i_max], &rates.mid[..=i_max], s, peak, level)
                     .filter(|r| *r >= rates.mid[j.saturating_sub(1)] - 2.0 * w as f64 * period)
@@ -905,7 +891,7 @@ impl ReleaseStart {
                     .unwrap_or_else(|| rates.rise_crossing(i_max, s, level));
                 // Rate noise moves the crossing by (rate noise) / (rate slope).
                 let slope = peak / (t_mid - r).max(period);
-                (r, quantisation_sd.hypot(rate_noise / slope), None)
+                (r, quantisation_sd.hypot(rate_noise / slope))
             }
         };
         let spread = creep_spread_s(rates, i_max, s, rate_noise, t_mid - release_s);
@@ -914,9 +900,20 @@ impl ReleaseStart {
             release_s,
             sd_s: sd_s.hypot(spread),
             rate_share: (s * rates.rate[k] / peak).clamp(-1.0, 1.0),
-            fit,
+            departure_s: rates.rise_crossing(i_max, s, level.max(4.0 * rate_noise)),
+            earliest_s: gentlest_start_s(rates, i_max, s, rate_noise).min(release_s),
         })
     }
+}
+
+/// Start of a speed growing as (t - t0)^3 through the times the rate rises through 10 % and 40 %
+/// of its peak (each at least four rate-noise standard deviations).
+fn gentlest_start_s(rates: &Rates, i_max: usize, s: f64, rate_noise: f64) -> f64 {
+    let peak = s * rates.rate[i_max];
+    let at = |share: f64| rates.rise_crossing(i_max, s, (share * peak).max(4.0 * rate_noise));
+    let (t10, t40) = (at(0.1), at(0.4));
+    let ratio = 4f64.powf(1.0 / 3.0);
+    (ratio * t10 - t40) / (ratio - 1.0)
 }
 
 /// Width of the rate windows, frames: the smallest power of two, from the phase's own smoothing
