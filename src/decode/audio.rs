@@ -106,7 +106,12 @@ pub fn decode_audio_with_info(path: &Path, bytes: &[u8], channel: usize) -> Resu
     };
     let signal = &decoded.signal;
     if signal.samples.is_empty() {
-        return Err(Error::malformed(path, "audio has no samples"));
+        let reason = if decoded.info.truncated {
+            "the audio stream is cut inside its first frame: no whole sample was decoded"
+        } else {
+            "audio has no samples"
+        };
+        return Err(Error::malformed(path, reason));
     }
     if !(MIN_RATE_HZ..=MAX_RATE_HZ).contains(&signal.sample_rate_hz) {
         return Err(Error::malformed(
@@ -186,6 +191,9 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<Decoded
                 path: path.to_path_buf(),
                 reason: "not a recognised audio container".into(),
             },
+            SymphoniaError::IoError(e) if e.kind() == std::io::ErrorKind::UnexpectedEof => {
+                Error::malformed(path, "the file ends inside its header, before any audio")
+            }
             other => symphonia_error(path, other),
         })?;
     let mut format = probed.format;
@@ -283,7 +291,7 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<Decoded
         trimmed_end += u64::from(packet.trim_end());
         let decoded = match decoder.decode(&packet) {
             Ok(d) => d,
-            Err(SymphoniaError::DecodeError(e)) => {
+            Err(e @ (SymphoniaError::DecodeError(_) | SymphoniaError::IoError(_))) => {
                 // The last packet of a cut file fails to decode: what came before is in place.
                 if format_next_is_end(&mut format, track_id) {
                     truncated_at_eof = true;
@@ -330,6 +338,20 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<Decoded
         lossy,
         ..AudioInfo::default()
     };
+    // The header's length (FLAC STREAMINFO, an MP3's Info frame count, an MP4's sample
+    // table) against what came, before an edit list cuts the priming and padding.
+    let declared = params.n_frames.filter(|&n| n > 0);
+    info.truncated = truncated_at_eof || declared.is_some_and(|n| decoded_frames < n);
+    if info.truncated {
+        info.declared_samples = declared
+            .filter(|&n| n > decoded_frames)
+            .map(|n| match edit {
+                Some(e) => e
+                    .duration_samples
+                    .unwrap_or(n.saturating_sub(e.priming_samples)),
+                None => n,
+            });
+    }
     if let Some(edit) = edit {
         let start = usize::try_from(edit.priming_samples).unwrap_or(usize::MAX);
         samples.drain(..start.min(samples.len()));
@@ -339,7 +361,6 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<Decoded
             samples.truncate(keep);
         }
         trimmed_start = edit.priming_samples;
-        decoded_frames = samples.len() as u64;
     }
     if lossy {
         let stated = match codec {
@@ -352,12 +373,6 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<Decoded
             info.encoder_delay_samples = Some(trimmed_start);
             info.encoder_padding_samples = Some(trimmed_end);
         }
-    }
-    // The header's length (FLAC STREAMINFO, an MP3's Info frame count) against what came.
-    let declared = params.n_frames.filter(|&n| n > 0);
-    info.truncated = truncated_at_eof || declared.is_some_and(|n| decoded_frames < n);
-    if info.truncated {
-        info.declared_samples = declared.filter(|&n| n > decoded_frames);
     }
     let clip_level = match bits {
         Some(b) if (2..=32).contains(&b) => 1.0 - 1.0 / 2f64.powi(b as i32 - 1),
