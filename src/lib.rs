@@ -26,6 +26,7 @@
 //!     motion_column: "brightness".into(),
 //!     loading_column: "brightness".into(),
 //!     timestamps_given: true,
+//!     ..Default::default()
 //! };
 //! let video = detect::detect_video(&series, &rig);
 //! let mut record = measure::TrialRecord::empty("demo", None);

@@ -7,6 +7,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::detect::{AudioEvents, VideoEvents};
 use crate::rig::{EfficiencyModel, RigProfile};
+pub use crate::signal::{FramesInput, Recording};
 
 /// Outcome of one trial.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -40,6 +41,20 @@ pub enum Flag {
     LowSnr,
     /// Frames missing from the video.
     FrameGaps,
+    /// Rows of the frames file dropped for a blank or non-numeric cell.
+    FramesDroppedCells,
+    /// The analysed audio channel holds no click, another channel does.
+    ClickOnOtherChannel,
+    /// Audio from a lossy codec (MP3, AAC, Vorbis): an onset may be smeared by up to one
+    /// codec frame.
+    LossyAudio,
+    /// Lossy audio whose file does not state the encoder delay: audio times may be late by it.
+    EncoderDelayUnknown,
+    /// The audio stream ends before the length its header declares; what was decoded is in
+    /// place.
+    TruncatedAudio,
+    /// A WAV whose recorder never finalised its header, read up to its last whole frame.
+    UnfinalisedWav,
 }
 
 impl Flag {
@@ -54,8 +69,59 @@ impl Flag {
             Flag::SyncMismatch => "sync_mismatch",
             Flag::LowSnr => "low_snr",
             Flag::FrameGaps => "frame_gaps",
+            Flag::FramesDroppedCells => "frames_dropped_cells",
+            Flag::ClickOnOtherChannel => "click_on_other_channel",
+            Flag::LossyAudio => "lossy_audio",
+            Flag::EncoderDelayUnknown => "encoder_delay_unknown",
+            Flag::TruncatedAudio => "truncated_audio",
+            Flag::UnfinalisedWav => "unfinalised_wav",
         }
     }
+
+    /// Every flag, in the order records list them.
+    pub const ALL: [Flag; 14] = [
+        Flag::NoClick,
+        Flag::DoubleClick,
+        Flag::NoLoading,
+        Flag::NoRelease,
+        Flag::Clipped,
+        Flag::SyncMismatch,
+        Flag::LowSnr,
+        Flag::FrameGaps,
+        Flag::FramesDroppedCells,
+        Flag::ClickOnOtherChannel,
+        Flag::LossyAudio,
+        Flag::EncoderDelayUnknown,
+        Flag::TruncatedAudio,
+        Flag::UnfinalisedWav,
+    ];
+}
+
+/// How the analysed audio channel was chosen.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ChannelChoice {
+    /// `--channel N` or the rig profile's `audio_channel` (0 by default).
+    Named,
+    /// `--channel auto` (the rig's `audio_channel_auto`): the channel with the clearest click.
+    Auto,
+}
+
+/// What was decoded from the audio file.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AudioInput {
+    /// Container and encoding, e.g. `WAV PCM 16-bit`, `RF64 mu-law`, `MP3`.
+    pub format: String,
+    /// Channels in the file.
+    pub channels: usize,
+    /// The channel analysed, from 0.
+    pub channel: usize,
+    pub channel_from: ChannelChoice,
+    /// Encoder delay and padding removed from a lossy stream, samples, as the file states them.
+    pub encoder_delay_samples: Option<u64>,
+    pub encoder_padding_samples: Option<u64>,
+    /// Length the header declares, seconds, when the stream ends before it.
+    pub declared_duration_s: Option<f64>,
 }
 
 /// Measures of the main click.
@@ -143,6 +209,18 @@ pub struct TrialRecord {
     pub audio_sample_rate_hz: Option<f64>,
     pub video_fps: Option<f64>,
     pub missing_frames: Option<u64>,
+    /// Samples decoded per channel and their duration at the sample rate.
+    pub audio_samples: Option<u64>,
+    pub audio_duration_s: Option<f64>,
+    pub audio_input: Option<AudioInput>,
+    /// With `click_on_other_channel`: the channel (from 0) whose click is clearest.
+    pub click_other_channel: Option<usize>,
+    /// Wall-clock start from a Broadcast WAV `bext` chunk.
+    pub recording: Option<Recording>,
+    /// Frames read, and the video clock span from the first to the last.
+    pub frames_decoded: Option<u64>,
+    pub video_duration_s: Option<f64>,
+    pub frames_input: Option<FramesInput>,
     pub provenance: Provenance,
 }
 
@@ -184,6 +262,14 @@ impl TrialRecord {
             audio_sample_rate_hz: None,
             video_fps: None,
             missing_frames: None,
+            audio_samples: None,
+            audio_duration_s: None,
+            audio_input: None,
+            click_other_channel: None,
+            recording: None,
+            frames_decoded: None,
+            video_duration_s: None,
+            frames_input: None,
             provenance: Provenance::default(),
         }
     }
@@ -194,6 +280,21 @@ impl TrialRecord {
             status: Status::Error,
             error: Some(message),
             ..TrialRecord::empty(trial, group)
+        }
+    }
+
+    /// Adds `flags` (kept sorted, without repeats) and sets the status to match, unless the
+    /// record is an error record.
+    pub fn add_flags(&mut self, flags: impl IntoIterator<Item = Flag>) {
+        self.flags.extend(flags);
+        self.flags.sort();
+        self.flags.dedup();
+        if self.status != Status::Error {
+            self.status = if self.flags.is_empty() {
+                Status::Ok
+            } else {
+                Status::Flagged
+            };
         }
     }
 

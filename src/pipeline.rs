@@ -3,10 +3,10 @@
 
 use std::path::{Path, PathBuf};
 
-use crate::decode::{self, FrameOptions};
-use crate::detect::{self, click::ClickScratch};
+use crate::decode::{self, DecodedAudio, FrameOptions};
+use crate::detect::{self, click::ClickScratch, AudioEvents};
 use crate::error::{Error, Result};
-use crate::measure::{self, TrialRecord};
+use crate::measure::{self, AudioInput, ChannelChoice, Flag, TrialRecord};
 use crate::rig::RigProfile;
 
 /// What one trial consists of.
@@ -71,8 +71,19 @@ fn try_analyze(
     rig: &RigProfile,
     scratch: &mut Scratch,
 ) -> Result<TrialRecord> {
+    // The rig's channel (the first one, for `auto`) is decoded first, so that a trial whose
+    // files are both unreadable reports its audio.
+    let first_channel = if rig.audio_channel_auto {
+        0
+    } else {
+        rig.audio_channel
+    };
     let audio = match (&spec.audio, &inputs.audio) {
-        (Some(path), Some(bytes)) => Some(decode::decode_audio(path, bytes, rig.audio_channel)?),
+        (Some(path), Some(bytes)) => Some((
+            path,
+            bytes,
+            decode::decode_audio_with_info(path, bytes, first_channel)?,
+        )),
         _ => None,
     };
     let frames = match (&spec.frames, &inputs.frames) {
@@ -83,30 +94,134 @@ fn try_analyze(
         )?),
         _ => None,
     };
-    if audio.is_none() && frames.is_none() {
-        return Err(Error::Usage(format!("trial {}: no inputs", spec.name)));
-    }
     let mut video_events = frames.as_ref().map(|f| detect::detect_video(f, rig));
     let expected = video_events
         .as_ref()
         .and_then(|v| detect::expected_click(v, rig));
-    let audio_events = audio.as_ref().map(|a| {
-        (
-            detect::detect_audio(a, rig, &mut scratch.click, expected),
-            a.sample_rate_hz,
-        )
-    });
-    if let (Some(v), Some((a, _))) = (video_events.as_mut(), &audio_events) {
-        detect::check_click_against_frames(v, a, rig);
+    let audio = match audio {
+        Some((path, bytes, decoded)) => {
+            Some(analyse_audio(path, bytes, decoded, rig, scratch, expected)?)
+        }
+        None => None,
+    };
+    if audio.is_none() && frames.is_none() {
+        return Err(Error::Usage(format!("trial {}: no inputs", spec.name)));
+    }
+    if let (Some(v), Some(a)) = (video_events.as_mut(), &audio) {
+        detect::check_click_against_frames(v, &a.events, rig);
     }
     let mut record = TrialRecord::empty(&spec.name, spec.group.as_deref());
     measure::measure(
         &mut record,
-        audio_events.as_ref().map(|(e, fs)| (e, *fs)),
+        audio
+            .as_ref()
+            .map(|a| (&a.events, a.decoded.signal.sample_rate_hz)),
         video_events.as_ref(),
         rig,
     );
+    if let Some(a) = &audio {
+        describe_audio(&mut record, a);
+    }
+    if let Some(f) = &frames {
+        record.frames_decoded = Some(f.len() as u64);
+        record.video_duration_s = Some(f.duration_s());
+        record.frames_input = Some(f.input.clone());
+        if f.input.dropped_rows > 0 {
+            record.add_flags([Flag::FramesDroppedCells]);
+        }
+    }
     Ok(record)
+}
+
+/// One trial's audio: the decoded channel, its events, and what the other channels showed.
+struct AudioAnalysis {
+    decoded: DecodedAudio,
+    events: AudioEvents,
+    channel_from: ChannelChoice,
+    /// A channel other than the analysed one that holds a click, when the analysed one holds
+    /// none (the clearest such channel).
+    click_other_channel: Option<usize>,
+}
+
+/// Searches the rig's channel (decoded already); with `audio_channel_auto` every channel, keeping
+/// the one whose main click has the highest SNR. When the analysed channel holds no click,
+/// the other channels are searched so the record can say where the click went. One channel
+/// is held in memory besides the best so far.
+fn analyse_audio(
+    path: &Path,
+    bytes: &[u8],
+    decoded: DecodedAudio,
+    rig: &RigProfile,
+    scratch: &mut Scratch,
+    expected: Option<detect::ExpectedClick>,
+) -> Result<AudioAnalysis> {
+    let auto = rig.audio_channel_auto;
+    let first = decoded.signal.channel;
+    let events = detect::detect_audio(&decoded.signal, rig, &mut scratch.click, expected);
+    let channels = decoded.signal.channels;
+    let mut analysis = AudioAnalysis {
+        decoded,
+        events,
+        channel_from: if auto {
+            ChannelChoice::Auto
+        } else {
+            ChannelChoice::Named
+        },
+        click_other_channel: None,
+    };
+    let snr = |e: &AudioEvents| e.main().map(|m| m.snr_db);
+    if channels < 2 || (!auto && analysis.events.main().is_some()) {
+        return Ok(analysis);
+    }
+    let mut best_other: Option<(f64, usize, DecodedAudio, AudioEvents)> = None;
+    for channel in (0..channels).filter(|&c| c != first) {
+        let d = decode::decode_audio_with_info(path, bytes, channel)?;
+        let e = detect::detect_audio(&d.signal, rig, &mut scratch.click, expected);
+        if let Some(s) = snr(&e) {
+            if best_other.as_ref().is_none_or(|b| s > b.0) {
+                best_other = Some((s, channel, d, e));
+            }
+        }
+    }
+    if let Some((s, channel, d, e)) = best_other {
+        if auto {
+            if snr(&analysis.events).is_none_or(|first_snr| s > first_snr) {
+                analysis.decoded = d;
+                analysis.events = e;
+            }
+        } else {
+            analysis.click_other_channel = Some(channel);
+        }
+    }
+    Ok(analysis)
+}
+
+/// Puts what the decoder learnt about the audio into the record, with its flags.
+fn describe_audio(record: &mut TrialRecord, a: &AudioAnalysis) {
+    let signal = &a.decoded.signal;
+    let info = &a.decoded.info;
+    let rate = signal.sample_rate_hz;
+    record.audio_samples = Some(signal.samples.len() as u64);
+    record.audio_duration_s = Some(signal.duration_s());
+    record.audio_input = Some(AudioInput {
+        format: info.format.clone(),
+        channels: signal.channels,
+        channel: signal.channel,
+        channel_from: a.channel_from,
+        encoder_delay_samples: info.encoder_delay_samples,
+        encoder_padding_samples: info.encoder_padding_samples,
+        declared_duration_s: info.declared_samples.map(|n| n as f64 / rate),
+    });
+    record.recording = info.recording.clone();
+    record.click_other_channel = a.click_other_channel;
+    let flags = [
+        (info.lossy, Flag::LossyAudio),
+        (info.encoder_delay_unknown, Flag::EncoderDelayUnknown),
+        (info.truncated, Flag::TruncatedAudio),
+        (info.unfinalised, Flag::UnfinalisedWav),
+        (a.click_other_channel.is_some(), Flag::ClickOnOtherChannel),
+    ];
+    record.add_flags(flags.into_iter().filter(|f| f.0).map(|f| f.1));
 }
 
 /// Reads and analyses one trial.

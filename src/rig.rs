@@ -39,6 +39,9 @@ pub struct RigProfile {
     pub air_temperature_c: f64,
     /// Zero-based audio channel to analyse.
     pub audio_channel: usize,
+    /// Analyse the channel whose click is clearest (highest click SNR) instead of
+    /// `audio_channel` (`--channel auto`).
+    pub audio_channel_auto: bool,
     /// Column of the frame CSV with the motion measure; default: first numeric non-time column.
     pub frames_column: Option<String>,
     /// Column of the frame CSV used for loading onset; default: the motion column.
@@ -101,6 +104,7 @@ impl Default for RigProfile {
             mic_distance_m: 0.0,
             air_temperature_c: 20.0,
             audio_channel: 0,
+            audio_channel_auto: false,
             frames_column: None,
             loading_column: None,
             mic_sensitivity_mv_per_pa: None,

@@ -111,15 +111,33 @@ struct RigArgs {
     /// Frame rate for frame CSVs without time_s (overrides the rig profile).
     #[arg(long)]
     fps: Option<f64>,
-    /// Audio channel to analyse, from 0 (overrides the rig profile).
-    #[arg(long)]
-    channel: Option<usize>,
+    /// Audio channel to analyse, from 0, or `auto` for the channel with the clearest click
+    /// (overrides the rig profile).
+    #[arg(long, value_parser = parse_channel)]
+    channel: Option<ChannelArg>,
     /// Frame CSV column with the motion measure (overrides the rig profile).
     #[arg(long)]
     column: Option<String>,
     /// Frame CSV column for loading onset (overrides the rig profile).
     #[arg(long)]
     loading_column: Option<String>,
+}
+
+/// `--channel N` or `--channel auto`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum ChannelArg {
+    Index(usize),
+    Auto,
+}
+
+fn parse_channel(s: &str) -> Result<ChannelArg, String> {
+    if s.eq_ignore_ascii_case("auto") {
+        return Ok(ChannelArg::Auto);
+    }
+    s.trim()
+        .parse()
+        .map(ChannelArg::Index)
+        .map_err(|_| format!("{s:?} is neither a channel number (from 0) nor `auto`"))
 }
 
 #[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
@@ -290,8 +308,13 @@ impl RigArgs {
         if self.fps.is_some() {
             rig.fps = self.fps;
         }
-        if let Some(c) = self.channel {
-            rig.audio_channel = c;
+        match self.channel {
+            Some(ChannelArg::Index(c)) => {
+                rig.audio_channel = c;
+                rig.audio_channel_auto = false;
+            }
+            Some(ChannelArg::Auto) => rig.audio_channel_auto = true,
+            None => {}
         }
         if self.column.is_some() {
             rig.frames_column = self.column.clone();

@@ -1,50 +1,117 @@
-//! Audio decoding. WAV files (8/16/24/32-bit integer, 32-bit float, WAVE_FORMAT_EXTENSIBLE) go
-//! through hound; anything hound refuses (64-bit float WAV, FLAC, AIFF, OGG Vorbis, MP3, AAC/M4A,
-//! CAF...) goes through symphonia. One channel is kept, scaled so that digital full scale is 1.0
-//! (integer codes divided by 2^(bits-1), as symphonia and soundfile do).
+//! Audio decoding. The WAV family (RIFF, RIFX, RF64, BW64: integer PCM of 8 to 32 bits, float,
+//! mu-law, A-law) is read by [`super::wav`] as libsndfile reads it; everything else (FLAC,
+//! AIFF, OGG Vorbis, MP3, AAC/M4A, CAF, ADPCM WAV...) goes through symphonia. One channel is
+//! kept, scaled so that digital full scale is 1.0 (integer codes divided by 2^(bits-1), as
+//! symphonia and soundfile do).
+//!
+//! No sample may move. Lossy streams are decoded in symphonia's gapless mode, which removes the
+//! encoder delay and padding an MP3's LAME/Info header or an Ogg stream's granule positions
+//! state; an MP4's edit list gives an AAC stream's priming ([`super::mp4`]). Every packet's
+//! timestamp is checked against the samples decoded before it: a damaged or missing stretch
+//! (a FLAC frame whose checksum fails is dropped by the demuxer) is an error naming where it
+//! is, never a shift of everything after it. A stream that ends before the length its header
+//! declares keeps what was decoded, and says so.
 
 use std::io::Cursor;
 use std::path::Path;
 
 use symphonia::core::audio::SampleBuffer;
-use symphonia::core::codecs::{DecoderOptions, CODEC_TYPE_NULL};
+use symphonia::core::codecs::{
+    DecoderOptions, CODEC_TYPE_AAC, CODEC_TYPE_MP1, CODEC_TYPE_MP2, CODEC_TYPE_MP3,
+    CODEC_TYPE_NULL, CODEC_TYPE_VORBIS,
+};
 use symphonia::core::errors::Error as SymphoniaError;
 use symphonia::core::formats::FormatOptions;
 use symphonia::core::io::MediaSourceStream;
 use symphonia::core::meta::MetadataOptions;
 use symphonia::core::probe::Hint;
 
+use super::{mp4, wav};
 use crate::error::{Error, Result};
-use crate::signal::AudioSignal;
+use crate::signal::{AudioSignal, Recording};
 
 /// Lowest and highest sample rates accepted, Hz. Below 8 kHz a click cannot be timed to the
 /// sample usefully; above 10 MHz the file is almost certainly mislabelled.
 const MIN_RATE_HZ: f64 = 1000.0;
 const MAX_RATE_HZ: f64 = 10_000_000.0;
 
+/// What the decoder learnt about a file besides its samples.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct AudioInfo {
+    /// Container and encoding, e.g. `WAV PCM 16-bit`, `RF64 mu-law`, `MP3`.
+    pub format: String,
+    /// A lossy codec (MP3, AAC, Vorbis).
+    pub lossy: bool,
+    /// Samples removed at the start and the end of a lossy stream, as the file states them.
+    pub encoder_delay_samples: Option<u64>,
+    pub encoder_padding_samples: Option<u64>,
+    /// A lossy stream whose file states no encoder delay (ADTS AAC, an MP3 without a LAME/Info
+    /// header): its samples may start late by the encoder's delay.
+    pub encoder_delay_unknown: bool,
+    /// The stream ends before the length its header declares (or its last packet is cut):
+    /// what was decoded is in place.
+    pub truncated: bool,
+    /// Samples per channel the header declares, when the stream ends before them.
+    pub declared_samples: Option<u64>,
+    /// A WAV header never finalised: the samples were read to the last whole frame.
+    pub unfinalised: bool,
+    /// Wall-clock start from a Broadcast WAV `bext` chunk.
+    pub recording: Option<Recording>,
+}
+
+/// One decoded channel and what was learnt about the file.
+#[derive(Debug, Clone)]
+pub struct DecodedAudio {
+    pub signal: AudioSignal,
+    pub info: AudioInfo,
+}
+
 /// Decodes `bytes` (the content of `path`) and keeps channel `channel`.
 pub fn decode_audio(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSignal> {
+    decode_audio_with_info(path, bytes, channel).map(|d| d.signal)
+}
+
+/// Decodes `bytes` (the content of `path`), keeps channel `channel`, and reports what the file
+/// says about its timing (encoder delay, truncation, an unfinalised header, `bext`).
+pub fn decode_audio_with_info(path: &Path, bytes: &[u8], channel: usize) -> Result<DecodedAudio> {
     if bytes.is_empty() {
         return Err(Error::malformed(path, "file is empty (0 bytes)"));
     }
-    let is_riff = bytes.len() >= 12 && &bytes[0..4] == b"RIFF" && &bytes[8..12] == b"WAVE";
-    let signal = if is_riff {
-        match decode_with_hound(path, bytes, channel) {
-            Ok(signal) => signal,
-            Err(HoundOutcome::Fatal(e)) => return Err(e),
-            Err(HoundOutcome::Refused(hound_reason)) => decode_with_symphonia(path, bytes, channel)
-                .map_err(|e| match e {
-                    Error::Malformed { path, reason } | Error::Unsupported { path, reason } => {
-                        Error::malformed(path, format!("{reason} (WAV reader: {hound_reason})"))
-                    }
-                    other => other,
-                })?,
-        }
+    let wav_layout = if wav::is_wav(bytes) {
+        wav::parse(path, bytes)?
     } else {
-        decode_with_symphonia(path, bytes, channel)?
+        None
     };
+    let decoded = match wav_layout {
+        Some(layout) => {
+            check_channel(path, channel, layout.channels)?;
+            DecodedAudio {
+                signal: AudioSignal {
+                    samples: wav::channel_samples(&layout, bytes, channel),
+                    sample_rate_hz: f64::from(layout.sample_rate),
+                    channels: layout.channels,
+                    channel,
+                    clip_level: layout.clip_level(),
+                    bits_per_sample: Some(layout.bits_per_sample()),
+                },
+                info: AudioInfo {
+                    format: layout.describe(),
+                    unfinalised: layout.unfinalised,
+                    recording: layout.recording.clone(),
+                    ..AudioInfo::default()
+                },
+            }
+        }
+        None => decode_with_symphonia(path, bytes, channel)?,
+    };
+    let signal = &decoded.signal;
     if signal.samples.is_empty() {
-        return Err(Error::malformed(path, "audio has no samples"));
+        let reason = if decoded.info.truncated {
+            "the audio stream is cut inside its first frame: no whole sample was decoded"
+        } else {
+            "audio has no samples"
+        };
+        return Err(Error::malformed(path, reason));
     }
     if !(MIN_RATE_HZ..=MAX_RATE_HZ).contains(&signal.sample_rate_hz) {
         return Err(Error::malformed(
@@ -61,14 +128,7 @@ pub fn decode_audio(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSi
             format!("sample {bad} of channel {channel} is not a finite number"),
         ));
     }
-    Ok(signal)
-}
-
-enum HoundOutcome {
-    /// hound read the header but the file is damaged: report, do not try another decoder.
-    Fatal(Error),
-    /// hound does not handle this variant: let symphonia try.
-    Refused(String),
+    Ok(decoded)
 }
 
 fn check_channel(path: &Path, channel: usize, channels: usize) -> Result<()> {
@@ -84,195 +144,6 @@ fn check_channel(path: &Path, channel: usize, channels: usize) -> Result<()> {
     Ok(())
 }
 
-fn decode_with_hound(
-    path: &Path,
-    bytes: &[u8],
-    channel: usize,
-) -> std::result::Result<AudioSignal, HoundOutcome> {
-    let reader = hound::WavReader::new(Cursor::new(bytes))
-        .map_err(|e| HoundOutcome::Refused(e.to_string()))?;
-    let spec = reader.spec();
-    let channels = usize::from(spec.channels);
-    check_channel(path, channel, channels).map_err(HoundOutcome::Fatal)?;
-    let declared = reader.len() as usize / channels.max(1);
-    // Never trust the declared size for allocation: a header may claim gigabytes.
-    let bytes_per_frame = (usize::from(spec.bits_per_sample).div_ceil(8) * channels).max(1);
-    let capacity = declared.min(bytes.len() / bytes_per_frame + 1);
-    let total_samples = reader.len() as usize;
-    let mut cursor = reader.into_inner();
-    let data_start = cursor.position() as usize;
-    if let Some(signal) = packed_samples(path, bytes, data_start, total_samples, spec, channel)? {
-        return Ok(signal);
-    }
-    cursor.set_position(0);
-    let reader = hound::WavReader::new(cursor).map_err(|e| HoundOutcome::Refused(e.to_string()))?;
-    let mut samples = Vec::with_capacity(capacity);
-    let (clip_level, result) = match spec.sample_format {
-        hound::SampleFormat::Int => {
-            let bits = u32::from(spec.bits_per_sample);
-            if bits == 0 || bits > 32 {
-                return Err(HoundOutcome::Refused(format!("{bits}-bit integer samples")));
-            }
-            let full_scale = 2f64.powi(bits as i32 - 1);
-            let scale = 1.0 / full_scale;
-            let max_code = full_scale - 1.0;
-            let mut result = Ok(());
-            for (i, s) in reader.into_samples::<i32>().enumerate() {
-                match s {
-                    Ok(v) => {
-                        if i % channels == channel {
-                            samples.push(f64::from(v) * scale);
-                        }
-                    }
-                    Err(e) => {
-                        result = Err(e);
-                        break;
-                    }
-                }
-            }
-            (max_code * scale, result)
-        }
-        hound::SampleFormat::Float => {
-            if spec.bits_per_sample != 32 {
-                return Err(HoundOutcome::Refused(format!(
-                    "{}-bit float samples",
-                    spec.bits_per_sample
-                )));
-            }
-            let mut result = Ok(());
-            for (i, s) in reader.into_samples::<f32>().enumerate() {
-                match s {
-                    Ok(v) => {
-                        if i % channels == channel {
-                            samples.push(f64::from(v));
-                        }
-                    }
-                    Err(e) => {
-                        result = Err(e);
-                        break;
-                    }
-                }
-            }
-            (1.0, result)
-        }
-    };
-    if let Err(e) = result {
-        return Err(HoundOutcome::Fatal(Error::malformed(
-            path,
-            format!(
-                "data chunk is truncated or damaged after {} of {declared} frames: {e}",
-                samples.len()
-            ),
-        )));
-    }
-    Ok(hound_signal(spec, samples, channel, clip_level))
-}
-
-/// The analysed channel of a WAV whose header hound read.
-fn hound_signal(
-    spec: hound::WavSpec,
-    samples: Vec<f64>,
-    channel: usize,
-    clip_level: f64,
-) -> AudioSignal {
-    AudioSignal {
-        samples,
-        sample_rate_hz: f64::from(spec.sample_rate),
-        channels: usize::from(spec.channels),
-        channel,
-        clip_level,
-        bits_per_sample: Some(u32::from(spec.bits_per_sample)),
-    }
-}
-
-/// Fast path for tightly packed little-endian PCM (16/24/32-bit integer, 32-bit float): hound
-/// has parsed and checked the header; the samples are converted straight from the data chunk,
-/// which is many times faster than reading them one by one. `Ok(None)` when the layout is
-/// anything else (8-bit, padded containers), which hound's sample reader then handles.
-fn packed_samples(
-    path: &Path,
-    bytes: &[u8],
-    data_start: usize,
-    total_samples: usize,
-    spec: hound::WavSpec,
-    channel: usize,
-) -> std::result::Result<Option<AudioSignal>, HoundOutcome> {
-    let width = usize::from(spec.bits_per_sample) / 8;
-    let packed_kind = matches!(
-        (spec.sample_format, spec.bits_per_sample),
-        (hound::SampleFormat::Int, 16 | 24 | 32) | (hound::SampleFormat::Float, 32)
-    );
-    // The data chunk's header sits just before its first byte: "data" and a u32 size.
-    let declared_bytes = match data_start
-        .checked_sub(8)
-        .and_then(|h| bytes.get(h..data_start))
-    {
-        Some(h) if &h[..4] == b"data" => u32::from_le_bytes([h[4], h[5], h[6], h[7]]) as usize,
-        _ => return Ok(None),
-    };
-    if !packed_kind || total_samples == 0 || declared_bytes != total_samples * width {
-        return Ok(None);
-    }
-    let channels = usize::from(spec.channels);
-    let available = bytes.len().saturating_sub(data_start);
-    let frame_bytes = width * channels;
-    if available < declared_bytes {
-        return Err(HoundOutcome::Fatal(Error::malformed(
-            path,
-            format!(
-                "data chunk is truncated or damaged after {} of {} frames: the header declares {declared_bytes} bytes, the file holds {available}",
-                available / frame_bytes,
-                total_samples / channels
-            ),
-        )));
-    }
-    let data = &bytes[data_start..data_start + declared_bytes];
-    let frames = data
-        .chunks_exact(frame_bytes)
-        .map(|f| &f[channel * width..(channel + 1) * width]);
-    // Scales are powers of two, so multiplying by their inverse is exact (and a division per
-    // sample costs as much as the rest of the decoding).
-    let (samples, clip_level): (Vec<f64>, f64) = match (spec.sample_format, width) {
-        (hound::SampleFormat::Int, 2) if frame_bytes == 2 => (
-            // Mono 16-bit, the common case: no per-frame channel slicing.
-            data.chunks_exact(2)
-                .map(|b| f64::from(i16::from_le_bytes([b[0], b[1]])) * (1.0 / 32_768.0))
-                .collect(),
-            32_767.0 / 32_768.0,
-        ),
-        (hound::SampleFormat::Int, 2) => (
-            frames
-                .map(|b| f64::from(i16::from_le_bytes([b[0], b[1]])) * (1.0 / 32_768.0))
-                .collect(),
-            32_767.0 / 32_768.0,
-        ),
-        (hound::SampleFormat::Int, 3) => (
-            frames
-                .map(|b| {
-                    f64::from(i32::from_le_bytes([0, b[0], b[1], b[2]]) >> 8) * (1.0 / 8_388_608.0)
-                })
-                .collect(),
-            8_388_607.0 / 8_388_608.0,
-        ),
-        (hound::SampleFormat::Int, 4) => (
-            frames
-                .map(|b| {
-                    f64::from(i32::from_le_bytes([b[0], b[1], b[2], b[3]]))
-                        * (1.0 / 2_147_483_648.0)
-                })
-                .collect(),
-            2_147_483_647.0 / 2_147_483_648.0,
-        ),
-        _ => (
-            frames
-                .map(|b| f64::from(f32::from_le_bytes([b[0], b[1], b[2], b[3]])))
-                .collect(),
-            1.0,
-        ),
-    };
-    Ok(Some(hound_signal(spec, samples, channel, clip_level)))
-}
-
 fn symphonia_error(path: &Path, e: SymphoniaError) -> Error {
     match e {
         SymphoniaError::Unsupported(what) => Error::Unsupported {
@@ -286,7 +157,7 @@ fn symphonia_error(path: &Path, e: SymphoniaError) -> Error {
 
 /// Runs symphonia, turning a panic inside it (seen on hostile headers, e.g. a zero sample
 /// rate in a RIFF header) into an error naming the file.
-fn decode_with_symphonia(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSignal> {
+fn decode_with_symphonia(path: &Path, bytes: &[u8], channel: usize) -> Result<DecodedAudio> {
     std::panic::catch_unwind(|| symphonia_decode(path, bytes, channel)).unwrap_or_else(|panic| {
         let what = crate::error::panic_message(panic.as_ref());
         Err(Error::malformed(
@@ -296,24 +167,33 @@ fn decode_with_symphonia(path: &Path, bytes: &[u8], channel: usize) -> Result<Au
     })
 }
 
-fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSignal> {
+/// A sample position as a person reads it in a message.
+fn position(sample: u64, sample_rate_hz: f64) -> String {
+    format!("sample {sample} ({:.6} s)", sample as f64 / sample_rate_hz)
+}
+
+fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<DecodedAudio> {
     let stream = MediaSourceStream::new(Box::new(Cursor::new(bytes.to_vec())), Default::default());
     let mut hint = Hint::new();
     if let Some(ext) = path.extension().and_then(|e| e.to_str()) {
         hint.with_extension(ext);
     }
+    // Gapless: the readers that know the encoder delay and padding (MP3's LAME/Info header,
+    // Ogg granule positions) mark them on the packets and the decoders drop them.
+    let format_options = FormatOptions {
+        enable_gapless: true,
+        ..FormatOptions::default()
+    };
     let probed = symphonia::default::get_probe()
-        .format(
-            &hint,
-            stream,
-            &FormatOptions::default(),
-            &MetadataOptions::default(),
-        )
+        .format(&hint, stream, &format_options, &MetadataOptions::default())
         .map_err(|e| match e {
             SymphoniaError::Unsupported(_) => Error::Unsupported {
                 path: path.to_path_buf(),
                 reason: "not a recognised audio container".into(),
             },
+            SymphoniaError::IoError(e) if e.kind() == std::io::ErrorKind::UnexpectedEof => {
+                Error::malformed(path, "the file ends inside its header, before any audio")
+            }
             other => symphonia_error(path, other),
         })?;
     let mut format = probed.format;
@@ -324,18 +204,51 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSi
         .ok_or_else(|| Error::malformed(path, "no audio track"))?;
     let track_id = track.id;
     let params = track.codec_params.clone();
-    let sample_rate_hz = f64::from(
-        params
-            .sample_rate
-            .ok_or_else(|| Error::malformed(path, "stream does not state its sample rate"))?,
-    );
+    let rate = params
+        .sample_rate
+        .ok_or_else(|| Error::malformed(path, "stream does not state its sample rate"))?;
+    let sample_rate_hz = f64::from(rate);
     let bits = params.bits_per_sample;
+    let codec = params.codec;
+    let lossy = [
+        CODEC_TYPE_MP1,
+        CODEC_TYPE_MP2,
+        CODEC_TYPE_MP3,
+        CODEC_TYPE_AAC,
+        CODEC_TYPE_VORBIS,
+    ]
+    .contains(&codec);
+    let codec_name = symphonia::default::get_codecs()
+        .get_codec(codec)
+        .map_or_else(|| "audio".to_string(), |d| d.short_name.to_uppercase());
+    // AAC priming is in the MP4 edit list, which symphonia 0.5 does not apply.
+    let edit = if codec == CODEC_TYPE_AAC {
+        mp4::audio_edit(bytes, rate)
+    } else {
+        None
+    };
     let mut decoder = symphonia::default::get_codecs()
         .make(&params, &DecoderOptions::default())
         .map_err(|e| symphonia_error(path, e))?;
+    // Packet timestamps in samples: the track's time base is usually 1 / sample rate, but an
+    // MP4 track may count in another unit.
+    let ts_to_samples = |ts: u64| -> u64 {
+        match params.time_base {
+            Some(tb) if tb.denom != 0 && !(tb.numer == 1 && tb.denom == rate) => {
+                (u128::from(ts) * u128::from(tb.numer) * u128::from(rate) / u128::from(tb.denom))
+                    as u64
+            }
+            _ => ts,
+        }
+    };
     let mut samples = Vec::new();
     let mut channels = params.channels.map(|c| c.count()).unwrap_or(0);
     let mut buffer: Option<SampleBuffer<f64>> = None;
+    // Samples per channel decoded so far (all of them, not only those kept), and trimmed.
+    let mut decoded_frames = 0u64;
+    let mut trimmed_start = 0u64;
+    let mut trimmed_end = 0u64;
+    let mut truncated_at_eof = false;
     loop {
         let packet = match format.next_packet() {
             Ok(p) => p,
@@ -343,20 +256,61 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSi
                 break
             }
             Err(SymphoniaError::ResetRequired) => break,
-            Err(e) => return Err(symphonia_error(path, e)),
+            Err(e) => {
+                return Err(Error::malformed(
+                    path,
+                    format!(
+                        "the stream is damaged after {}: {e}",
+                        position(decoded_frames, sample_rate_hz)
+                    ),
+                ))
+            }
         };
         if packet.track_id() != track_id {
             continue;
         }
+        let at = ts_to_samples(packet.ts());
+        if at != decoded_frames {
+            let what = if at > decoded_frames {
+                format!(
+                    "{} samples are missing (a damaged or lost frame)",
+                    at - decoded_frames
+                )
+            } else {
+                format!("{} samples overlap the ones before", decoded_frames - at)
+            };
+            return Err(Error::malformed(
+                path,
+                format!(
+                    "the stream is damaged at {}: {what}; later samples would move, so the file is not analysed",
+                    position(decoded_frames, sample_rate_hz)
+                ),
+            ));
+        }
+        trimmed_start += u64::from(packet.trim_start());
+        trimmed_end += u64::from(packet.trim_end());
         let decoded = match decoder.decode(&packet) {
             Ok(d) => d,
-            // A damaged packet in a lossy stream is skipped, as players do.
-            Err(SymphoniaError::DecodeError(_)) => continue,
+            Err(e @ (SymphoniaError::DecodeError(_) | SymphoniaError::IoError(_))) => {
+                // The last packet of a cut file fails to decode: what came before is in place.
+                if format_next_is_end(&mut format, track_id) {
+                    truncated_at_eof = true;
+                    break;
+                }
+                return Err(Error::malformed(
+                    path,
+                    format!(
+                        "the stream is damaged at {}: {e}; later samples would move, so the file is not analysed",
+                        position(decoded_frames, sample_rate_hz)
+                    ),
+                ));
+            }
             Err(e) => return Err(symphonia_error(path, e)),
         };
         let spec = *decoded.spec();
         channels = spec.channels.count();
         check_channel(path, channel, channels)?;
+        decoded_frames += decoded.frames() as u64;
         let needed = decoded.capacity() as u64;
         if buffer
             .as_ref()
@@ -379,18 +333,76 @@ fn symphonia_decode(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSi
         return Err(Error::malformed(path, "audio has no samples"));
     }
     check_channel(path, channel, channels)?;
+    let mut info = AudioInfo {
+        format: codec_name,
+        lossy,
+        ..AudioInfo::default()
+    };
+    // The header's length (FLAC STREAMINFO, an MP3's Info frame count, an MP4's sample
+    // table) against what came, before an edit list cuts the priming and padding.
+    let declared = params.n_frames.filter(|&n| n > 0);
+    info.truncated = truncated_at_eof || declared.is_some_and(|n| decoded_frames < n);
+    if info.truncated {
+        info.declared_samples = declared
+            .filter(|&n| n > decoded_frames)
+            .map(|n| match edit {
+                Some(e) => e
+                    .duration_samples
+                    .unwrap_or(n.saturating_sub(e.priming_samples)),
+                None => n,
+            });
+    }
+    if let Some(edit) = edit {
+        let start = usize::try_from(edit.priming_samples).unwrap_or(usize::MAX);
+        samples.drain(..start.min(samples.len()));
+        if let Some(keep) = edit.duration_samples {
+            let keep = usize::try_from(keep).unwrap_or(usize::MAX);
+            trimmed_end = samples.len().saturating_sub(keep) as u64;
+            samples.truncate(keep);
+        }
+        trimmed_start = edit.priming_samples;
+    }
+    if lossy {
+        let stated = match codec {
+            CODEC_TYPE_VORBIS => true,
+            CODEC_TYPE_AAC => edit.is_some(),
+            _ => params.delay.is_some(),
+        };
+        info.encoder_delay_unknown = !stated;
+        if stated {
+            info.encoder_delay_samples = Some(trimmed_start);
+            info.encoder_padding_samples = Some(trimmed_end);
+        }
+    }
     let clip_level = match bits {
         Some(b) if (2..=32).contains(&b) => 1.0 - 1.0 / 2f64.powi(b as i32 - 1),
         _ => 1.0,
     };
-    Ok(AudioSignal {
-        samples,
-        sample_rate_hz,
-        channels,
-        channel,
-        clip_level,
-        bits_per_sample: bits,
+    Ok(DecodedAudio {
+        signal: AudioSignal {
+            samples,
+            sample_rate_hz,
+            channels,
+            channel,
+            clip_level,
+            bits_per_sample: bits,
+        },
+        info,
     })
+}
+
+/// True when no further packet of `track_id` follows (the stream ends here).
+fn format_next_is_end(
+    format: &mut Box<dyn symphonia::core::formats::FormatReader>,
+    track_id: u32,
+) -> bool {
+    loop {
+        match format.next_packet() {
+            Ok(p) if p.track_id() != track_id => continue,
+            Ok(_) => return false,
+            Err(_) => return true,
+        }
+    }
 }
 
 #[cfg(test)]

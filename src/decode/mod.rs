@@ -1,12 +1,14 @@
 //! Decoding: files on disk into the in-memory forms of [`crate::signal`]. Audio goes through
-//! hound (fast path for PCM and float WAV) or symphonia (every other container and codec);
+//! the WAV-family reader (`wav`) or symphonia (every other container and codec);
 //! frame streams are CSV read with the `csv` crate. Decoders take the file's bytes, so a batch
 //! reads each input once and hashes the same bytes for resume.
 
 pub mod audio;
 pub mod frames;
+mod mp4;
+mod wav;
 
-pub use audio::decode_audio;
+pub use audio::{decode_audio, decode_audio_with_info, AudioInfo, DecodedAudio};
 pub use frames::{decode_frames, FrameOptions};
 
 use std::path::Path;

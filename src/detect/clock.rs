@@ -167,6 +167,7 @@ mod tests {
             motion_column: "b".into(),
             loading_column: "b".into(),
             timestamps_given: true,
+            ..FrameSeries::default()
         }
     }
 

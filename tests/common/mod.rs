@@ -5,6 +5,8 @@ use std::path::{Path, PathBuf};
 
 use serde_json::Value;
 
+pub mod wav_builder;
+
 pub fn bin() -> assert_cmd::Command {
     assert_cmd::Command::cargo_bin("latchtime").expect("binary is built by cargo test")
 }
