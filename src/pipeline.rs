@@ -31,6 +31,103 @@ pub struct Scratch {
     pub click: ClickScratch,
 }
 
+/// Largest input file read, bytes (4 GiB, the size limit of a plain WAV file). Larger files
+/// are refused with an error naming them, so that a wrong path (a disk image, a device) cannot
+/// exhaust memory.
+pub const MAX_INPUT_BYTES: u64 = 4 << 30;
+
+/// Reads the whole file at `path`, naming it on failure. Anything but a regular file (a FIFO,
+/// a device, a folder) and files over `limit_bytes` are refused before any byte is read: the
+/// file is opened without blocking (a FIFO with no writer would otherwise wait for ever) and
+/// checked by its open handle, so a file swapped between the check and the read is caught too.
+/// With `follow_symlinks` false a symbolic link is refused as well. OS errors (missing file,
+/// no permission, I/O) are [`Error::Io`]; refusals are [`Error::Malformed`].
+pub fn read_bounded(path: &Path, limit_bytes: u64, follow_symlinks: bool) -> Result<Vec<u8>> {
+    use std::io::Read;
+    let meta = if follow_symlinks {
+        std::fs::metadata(path)
+    } else {
+        std::fs::symlink_metadata(path)
+    }
+    .map_err(|e| Error::io(path, e))?;
+    refuse_irregular(path, &meta, limit_bytes)?;
+    let mut options = std::fs::OpenOptions::new();
+    options.read(true);
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::OpenOptionsExt;
+        let nofollow = if follow_symlinks { 0 } else { libc::O_NOFOLLOW };
+        options.custom_flags(libc::O_NONBLOCK | nofollow);
+    }
+    let file = options.open(path).map_err(|e| Error::io(path, e))?;
+    let meta = file.metadata().map_err(|e| Error::io(path, e))?;
+    refuse_irregular(path, &meta, limit_bytes)?;
+    let mut bytes = Vec::with_capacity(usize::try_from(meta.len()).unwrap_or(0));
+    // One byte past the limit tells a file that grew while being read.
+    file.take(limit_bytes.saturating_add(1))
+        .read_to_end(&mut bytes)
+        .map_err(|e| Error::io(path, e))?;
+    if bytes.len() as u64 > limit_bytes {
+        return Err(too_large(path, limit_bytes));
+    }
+    Ok(bytes)
+}
+
+/// What kind of file `meta` describes, for messages.
+pub fn file_kind(meta: &std::fs::Metadata) -> &'static str {
+    let t = meta.file_type();
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::FileTypeExt;
+        if t.is_fifo() {
+            return "a FIFO (named pipe)";
+        }
+        if t.is_char_device() || t.is_block_device() {
+            return "a device";
+        }
+        if t.is_socket() {
+            return "a socket";
+        }
+    }
+    if t.is_dir() {
+        "a folder"
+    } else if t.is_symlink() {
+        "a symbolic link"
+    } else if t.is_file() {
+        "a regular file"
+    } else {
+        "not a regular file"
+    }
+}
+
+fn refuse_irregular(path: &Path, meta: &std::fs::Metadata, limit_bytes: u64) -> Result<()> {
+    if !meta.is_file() {
+        return Err(Error::malformed(
+            path,
+            format!("it is {}, not a regular file", file_kind(meta)),
+        ));
+    }
+    if meta.len() > limit_bytes {
+        return Err(too_large(path, limit_bytes));
+    }
+    Ok(())
+}
+
+fn too_large(path: &Path, limit_bytes: u64) -> Error {
+    Error::malformed(
+        path,
+        format!(
+            "the file is larger than the input limit of {} MiB",
+            limit_bytes >> 20
+        ),
+    )
+}
+
+/// Reads one input file of a trial: [`read_bounded`] at [`MAX_INPUT_BYTES`].
+pub fn read_input(path: &Path) -> Result<Vec<u8>> {
+    read_bounded(path, MAX_INPUT_BYTES, true)
+}
+
 /// Reads the files a trial names.
 pub fn read_inputs(spec: &TrialSpec) -> Result<TrialInputs> {
     if spec.audio.is_none() && spec.frames.is_none() {
@@ -40,8 +137,8 @@ pub fn read_inputs(spec: &TrialSpec) -> Result<TrialInputs> {
         )));
     }
     Ok(TrialInputs {
-        audio: spec.audio.as_deref().map(decode::read_input).transpose()?,
-        frames: spec.frames.as_deref().map(decode::read_input).transpose()?,
+        audio: spec.audio.as_deref().map(read_input).transpose()?,
+        frames: spec.frames.as_deref().map(read_input).transpose()?,
     })
 }
 

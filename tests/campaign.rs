@@ -1,5 +1,5 @@
 //! Overnight-campaign guarantees: a batch killed with SIGKILL at any point resumes to records
-//! byte-identical to an uninterrupted run, with no temporary files left; shards cover every
+//! byte-identical to an uninterrupted run, with no temporary or lock files left; shards cover every
 //! trial exactly once; a changed rig setting recomputes every trial it affects; groups.csv
 //! agrees with statistics computed independently.
 
@@ -75,8 +75,17 @@ fn a_batch_killed_at_any_point_resumes_to_identical_records() {
                 );
             }
         }
+        // The killed run's lock is released by the system, so the resume is not refused.
         quiet_batch(data.path(), out.path(), &[]);
         let resumed = records(out.path());
+        let hidden: Vec<String> = std::fs::read_dir(out.path())
+            .unwrap()
+            .flatten()
+            .map(|e| e.file_name().to_string_lossy().into_owned())
+            .filter(|n| n.starts_with('.'))
+            .collect();
+        assert!(hidden.is_empty(), "left after resume: {hidden:?}");
+        assert!(read_json(&out.path().join("run.json"))["finished"].is_string());
         assert_eq!(resumed, expected, "after kill at {delay_ms} ms");
         let summary = std::fs::read(out.path().join("summary.csv")).unwrap();
         assert_eq!(

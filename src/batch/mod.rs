@@ -1,15 +1,28 @@
 //! Campaigns: discovery, parallel analysis (rayon, one worker per job), resume, sharding and the
-//! summary table. Every record is written atomically as soon as its trial is done, so a killed
-//! run leaves only complete records; `summary.csv` is rebuilt from the records. A trial is
-//! skipped on a re-run when its record was made from the same input bytes, the same effective
-//! settings and the same tool version (SHA-256 of each, stored in the record).
+//! tables. A results folder describes one campaign, the trials of the latest run's input, made
+//! with one set of settings, and has one writer at a time ([`lock`]).
+//!
+//! Every record is written atomically as soon as its trial is done, so a killed run leaves
+//! only complete records. A trial is skipped on a re-run when its record was made from the same
+//! input bytes, the same effective settings and the same tool version (SHA-256 of each, stored
+//! in the record); when only its group or input paths changed, the record is rewritten with
+//! them without a new analysis. Records of trials no longer in the campaign are moved to
+//! `trials/stale/`. A trial whose inputs cannot be read keeps its earlier good record. The
+//! first failed write stops the run: trials in flight finish, no new one starts.
 
 pub mod atomic;
 pub mod discover;
+pub mod lock;
+pub mod offset;
+mod review;
+pub mod runfile;
+mod tables;
 
 use std::collections::HashSet;
 use std::panic::AssertUnwindSafe;
 use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Mutex;
 
 use rayon::prelude::*;
 use sha2::{Digest, Sha256};
@@ -19,7 +32,11 @@ use crate::measure::{Provenance, Status, TrialRecord};
 use crate::pipeline::{self, Scratch, TrialInputs};
 use crate::report;
 use crate::rig::RigProfile;
-pub use discover::{discover, Discovered};
+pub use discover::{discover, discover_with, DiscoverOptions, Discovered, Discovery};
+pub use lock::{Holder, Scope};
+pub use review::{write_report, ReportOutcome};
+pub use runfile::{Invocation, RunCounts, RunFile, TrialOutcome};
+pub use tables::{campaign_records, summarize, CampaignRecords, MixedSettings, Tables};
 
 /// How a batch runs.
 #[derive(Debug, Clone)]
@@ -32,13 +49,15 @@ pub struct BatchConfig {
     pub force: bool,
     /// Analyse only shard `k` of `n` (1-based), chosen by a hash of the trial name.
     pub shard: Option<(u64, u64)>,
+    /// How the run was started, kept in the run file.
+    pub invocation: Invocation,
 }
 
 /// Receives progress events; the CLI draws them. Called from worker threads.
 pub trait Progress: Sync {
     /// The batch has `total` trials to go through.
     fn start(&self, total: usize);
-    /// One trial is finished; `reused` when its existing record was current.
+    /// One trial is finished; `reused` when no new analysis was needed.
     fn trial_done(&self, record: &TrialRecord, reused: bool);
     /// All trials are done.
     fn finish(&self);
@@ -53,15 +72,20 @@ impl Progress for Silent {
     fn finish(&self) {}
 }
 
-/// Counts of one batch run.
-#[derive(Debug, Clone, Default, PartialEq, Eq)]
+/// What one batch run did.
+#[derive(Debug, Default)]
 pub struct BatchOutcome {
-    pub trials: usize,
-    pub analysed: usize,
-    pub reused: usize,
-    pub ok: usize,
-    pub flagged: usize,
-    pub errors: usize,
+    pub counts: RunCounts,
+    /// Record files moved to `trials/stale/`.
+    pub stale: Vec<String>,
+    /// Trials whose inputs could not be read and kept their earlier record, with the reason.
+    pub kept: Vec<(String, String)>,
+    /// The first failed write, when the run stopped on it.
+    pub stopped: Option<Error>,
+    /// What became of `summary.csv` and `groups.csv`.
+    pub tables: Tables,
+    /// The run file's name.
+    pub run_file: String,
 }
 
 /// Lower-case hex SHA-256 of `bytes`.
@@ -87,32 +111,191 @@ pub fn trials_dir(out_dir: &Path) -> PathBuf {
     out_dir.join("trials")
 }
 
-fn record_file_name(name: &str) -> String {
-    format!("{name}.json")
+/// Folder of records of trials no longer in the campaign.
+pub fn stale_dir(out_dir: &Path) -> PathBuf {
+    trials_dir(out_dir).join("stale")
 }
 
-/// Runs a batch over discovered trials. Fails only when the output folder cannot be written.
+/// The record file name of a trial.
+pub fn record_file_name(name: &str) -> String {
+    format!("{}.json", discover::record_stem(name))
+}
+
+/// Largest record file read back, bytes.
+const MAX_RECORD_BYTES: u64 = 64 << 20;
+
+/// The record at `path` when it is a regular file (never through a link) that parses.
+pub(crate) fn read_record(path: &Path) -> Option<TrialRecord> {
+    let bytes = pipeline::read_bounded(path, MAX_RECORD_BYTES, false).ok()?;
+    let text = String::from_utf8(bytes).ok()?;
+    report::json::parse_record(&text).ok()
+}
+
+/// A results folder held by this process: its lock is released when this is dropped.
+#[derive(Debug)]
+pub struct ResultsFolder {
+    dir: PathBuf,
+    scope: Scope,
+    _lock: lock::FolderLock,
+    /// Holders of the lock that had ended without releasing it.
+    pub taken_over: Vec<Holder>,
+    /// Temporary files of killed runs removed on opening.
+    pub leftovers_removed: usize,
+}
+
+/// What [`open`] found.
+#[derive(Debug)]
+pub enum Opened {
+    Held(ResultsFolder),
+    /// Another run writes the folder.
+    Busy(Vec<Holder>),
+}
+
+/// Refuses a folder inside the results folder that is a link or not a folder: writing through
+/// it would write outside.
+fn check_subfolder(path: &Path) -> Result<()> {
+    match std::fs::symlink_metadata(path) {
+        Ok(m) if m.is_dir() => Ok(()),
+        Ok(m) => Err(Error::malformed(
+            path,
+            format!(
+                "it is {}, not a folder; latchtime writes only inside the results folder (remove it)",
+                pipeline::file_kind(&m)
+            ),
+        )),
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(()),
+        Err(e) => Err(Error::io(path, e)),
+    }
+}
+
+/// Creates (if needed) and locks the results folder `dir` for `scope`; `command` names this
+/// run in the lock file. A whole-folder holder then removes temporary files of killed runs.
+pub fn open(dir: &Path, scope: Scope, command: &str) -> Result<Opened> {
+    std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+    let subfolders = [trials_dir(dir), stale_dir(dir), dir.join("plots")];
+    for sub in &subfolders {
+        check_subfolder(sub)?;
+    }
+    let (lock, taken_over) = match lock::acquire(dir, scope, command)? {
+        lock::Acquired::Locked { lock, taken_over } => (lock, taken_over),
+        lock::Acquired::Busy(holders) => return Ok(Opened::Busy(holders)),
+    };
+    let mut leftovers_removed = 0;
+    if scope == Scope::Whole {
+        for d in std::iter::once(dir.to_path_buf()).chain(subfolders) {
+            leftovers_removed += atomic::remove_leftovers(&d, &atomic::Leftovers::All);
+        }
+    }
+    Ok(Opened::Held(ResultsFolder {
+        dir: dir.to_path_buf(),
+        scope,
+        _lock: lock,
+        taken_over,
+        leftovers_removed,
+    }))
+}
+
+impl ResultsFolder {
+    /// The folder.
+    pub fn dir(&self) -> &Path {
+        &self.dir
+    }
+}
+
+fn path_string(p: &Option<PathBuf>) -> Option<String> {
+    p.as_deref().map(|p| p.display().to_string())
+}
+
+/// Moves records in `trials/` that belong to no trial of `wanted` to `trials/stale/` (for a
+/// shard: only those whose file stem falls in its shard). Returns the moved file names.
+fn move_stale(
+    folder: &ResultsFolder,
+    wanted: &HashSet<String>,
+    shard: Option<(u64, u64)>,
+) -> Result<Vec<String>> {
+    let dir = trials_dir(&folder.dir);
+    let entries = match std::fs::read_dir(&dir) {
+        Ok(e) => e,
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => return Ok(Vec::new()),
+        Err(e) => return Err(Error::io(&dir, e)),
+    };
+    let mut stale: Vec<String> = entries
+        .flatten()
+        .filter(|e| !e.file_type().is_ok_and(|t| t.is_dir()))
+        .map(|e| e.file_name().to_string_lossy().into_owned())
+        .filter(|n| n.ends_with(".json") && !n.starts_with('.') && !wanted.contains(n))
+        .filter(|n| shard.is_none_or(|(k, n_)| in_shard(n.trim_end_matches(".json"), k, n_)))
+        .collect();
+    stale.sort();
+    if stale.is_empty() {
+        return Ok(stale);
+    }
+    let to = stale_dir(&folder.dir);
+    check_subfolder(&to)?;
+    std::fs::create_dir_all(&to).map_err(|e| Error::io(&to, e))?;
+    for name in &stale {
+        std::fs::rename(dir.join(name), to.join(name)).map_err(|e| Error::io(dir.join(name), e))?;
+    }
+    Ok(stale)
+}
+
+/// Runs a batch over discovered trials in a held results folder: records, stale records,
+/// tables and the run file. Fails only when the run file cannot be written at the start or
+/// a stale record cannot be moved; a failed record write stops the run and is returned in
+/// [`BatchOutcome::stopped`].
 pub fn run(
+    folder: &ResultsFolder,
     trials: Vec<Discovered>,
     config: &BatchConfig,
     progress: &dyn Progress,
 ) -> Result<BatchOutcome> {
-    let dir = trials_dir(&config.out_dir);
+    let out = &folder.dir;
+    let dir = trials_dir(out);
     std::fs::create_dir_all(&dir).map_err(|e| Error::io(&dir, e))?;
-    let trials: Vec<Discovered> = match config.shard {
-        Some((k, n)) => trials
-            .into_iter()
-            .filter(|t| in_shard(&t.spec.name, k, n))
-            .collect(),
-        None => trials,
-    };
-    let owned: HashSet<String> = trials
-        .iter()
-        .map(|t| record_file_name(&file_stem_for(&t.spec.name)))
-        .collect();
-    atomic::remove_stale_temps(&dir, &owned);
     let settings = settings_hash(&config.rig);
-    progress.start(trials.len());
+    let mut run = runfile::RunFile {
+        tool: "latchtime".into(),
+        tool_version: env!("CARGO_PKG_VERSION").into(),
+        invocation: config.invocation.clone(),
+        shard: config.shard,
+        settings: config.rig.clone(),
+        settings_sha256: settings.clone(),
+        host: lock::host_name(),
+        pid: std::process::id(),
+        started: lock::now_rfc3339(),
+        finished: None,
+        stopped: None,
+        counts: RunCounts::default(),
+        trials: trials
+            .iter()
+            .map(|t| runfile::RunTrial {
+                trial: t.spec.name.clone(),
+                group: t.spec.group.clone(),
+                audio: path_string(&t.spec.audio),
+                frames: path_string(&t.spec.frames),
+                record: record_file_name(&t.spec.name),
+                outcome: None,
+                status: None,
+            })
+            .collect(),
+        stale: Vec::new(),
+    };
+    runfile::remove_superseded(out, config.shard);
+    runfile::write(out, &run)?;
+    let wanted: HashSet<String> = run.trials.iter().map(|t| t.record.clone()).collect();
+    let mine: Vec<usize> = (0..trials.len())
+        .filter(|i| {
+            config
+                .shard
+                .is_none_or(|(k, n)| in_shard(&trials[*i].spec.name, k, n))
+        })
+        .collect();
+    if folder.scope != Scope::Whole {
+        let owned: HashSet<String> = mine.iter().map(|i| run.trials[*i].record.clone()).collect();
+        atomic::remove_leftovers(&dir, &atomic::Leftovers::For(&owned));
+    }
+    let stale = move_stale(folder, &wanted, config.shard)?;
+    progress.start(mine.len());
     let jobs = if config.jobs == 0 {
         std::thread::available_parallelism().map_or(1, |n| n.get())
     } else {
@@ -122,43 +305,103 @@ pub fn run(
         .num_threads(jobs)
         .build()
         .map_err(|e| Error::Usage(format!("cannot start {jobs} worker threads: {e}")))?;
-    let results: Vec<Result<(Status, bool)>> = pool.install(|| {
-        trials
-            .par_iter()
-            .map_init(Scratch::default, |scratch, trial| {
-                let (record, reused) = process(trial, config, &settings, &dir, scratch)?;
-                progress.trial_done(&record, reused);
-                Ok((record.status, reused))
+    let stop = AtomicBool::new(false);
+    let first_error: Mutex<Option<Error>> = Mutex::new(None);
+    let results: Vec<(usize, Done)> = pool.install(|| {
+        mine.par_iter()
+            .map_init(Scratch::default, |scratch, &i| {
+                if stop.load(Ordering::SeqCst) {
+                    return (i, Done::NotStarted);
+                }
+                match process(&trials[i], config, &settings, &dir, scratch) {
+                    Ok(done) => {
+                        let reused = !matches!(done.outcome, TrialOutcome::Analysed);
+                        progress.trial_done(&done.record, reused);
+                        (i, Done::Record(Box::new(done)))
+                    }
+                    Err(e) => {
+                        if !stop.swap(true, Ordering::SeqCst) {
+                            if let Ok(mut first) = first_error.lock() {
+                                *first = Some(e);
+                            }
+                        }
+                        (i, Done::NotWritten)
+                    }
+                }
             })
             .collect()
     });
     progress.finish();
     let mut outcome = BatchOutcome {
-        trials: trials.len(),
+        stale,
+        run_file: runfile::run_file_name(config.shard),
         ..BatchOutcome::default()
     };
-    for r in results {
-        let (status, reused) = r?;
-        if reused {
-            outcome.reused += 1;
-        } else {
-            outcome.analysed += 1;
-        }
-        match status {
-            Status::Ok => outcome.ok += 1,
-            Status::Flagged => outcome.flagged += 1,
-            Status::Error => outcome.errors += 1,
+    let c = &mut outcome.counts;
+    c.trials = mine.len();
+    c.stale_moved = outcome.stale.len();
+    for (i, done) in results {
+        let entry = &mut run.trials[i];
+        match done {
+            Done::Record(d) => {
+                match d.outcome {
+                    TrialOutcome::Analysed => c.analysed += 1,
+                    TrialOutcome::Reused => c.reused += 1,
+                    TrialOutcome::Rewritten => c.rewritten += 1,
+                    TrialOutcome::Kept => c.kept += 1,
+                    TrialOutcome::NotWritten | TrialOutcome::NotStarted => {}
+                }
+                match d.record.status {
+                    Status::Ok => c.ok += 1,
+                    Status::Flagged => c.flagged += 1,
+                    Status::Error => c.errors += 1,
+                }
+                entry.outcome = Some(d.outcome);
+                entry.status = Some(d.record.status);
+                if let Some(note) = d.note {
+                    outcome.kept.push((entry.trial.clone(), note));
+                }
+            }
+            Done::NotWritten => {
+                c.not_written += 1;
+                entry.outcome = Some(TrialOutcome::NotWritten);
+            }
+            Done::NotStarted => {
+                c.not_started += 1;
+                entry.outcome = Some(TrialOutcome::NotStarted);
+            }
         }
     }
+    outcome.stopped = first_error.into_inner().ok().flatten();
+    run.counts = outcome.counts.clone();
+    run.stale = outcome.stale.clone();
+    if let Some(e) = &outcome.stopped {
+        run.stopped = Some(e.to_string());
+        // The disk that refused a record will likely refuse this too; the cause is named once.
+        let _ = runfile::write(out, &run);
+        return Ok(outcome);
+    }
+    outcome.tables = {
+        let _tables = lock::tables_lock(out)?;
+        let records = CampaignRecords::of_run(out, &run);
+        tables::write_tables(out, &records, config.shard.is_some())?
+    };
+    run.finished = Some(lock::now_rfc3339());
+    runfile::write(out, &run)?;
     Ok(outcome)
 }
 
-/// The file stem used for a trial's record: the name itself when safe, else a stand-in.
-fn file_stem_for(name: &str) -> String {
-    match discover::check_name(name) {
-        Ok(()) => name.to_string(),
-        Err(_) => discover::safe_stand_in(name),
-    }
+enum Done {
+    Record(Box<Processed>),
+    NotWritten,
+    NotStarted,
+}
+
+struct Processed {
+    record: TrialRecord,
+    outcome: TrialOutcome,
+    /// Why the inputs could not be read, for a kept record.
+    note: Option<String>,
 }
 
 fn process(
@@ -167,17 +410,20 @@ fn process(
     settings: &str,
     dir: &Path,
     scratch: &mut Scratch,
-) -> Result<(TrialRecord, bool)> {
+) -> Result<Processed> {
     let spec = &trial.spec;
-    let stem = file_stem_for(&spec.name);
-    let path = dir.join(record_file_name(&stem));
+    let path = dir.join(record_file_name(&spec.name));
+    let existing = read_record(&path).filter(|r| r.trial == spec.name);
     let problem = trial
         .problem
         .clone()
         .or_else(|| discover::check_name(&spec.name).err());
-    let (inputs, read_error) = match pipeline::read_inputs(spec) {
-        Ok(inputs) => (inputs, None),
-        Err(e) => (TrialInputs::default(), Some(e.to_string())),
+    let (inputs, read_error) = match problem {
+        Some(p) => (TrialInputs::default(), Some(Error::Usage(p))),
+        None => match pipeline::read_inputs(spec) {
+            Ok(inputs) => (inputs, None),
+            Err(e) => (TrialInputs::default(), Some(e)),
+        },
     };
     let provenance = Provenance {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
@@ -185,21 +431,49 @@ fn process(
         frames_sha256: inputs.frames.as_deref().map(sha256_hex),
         settings_sha256: settings.to_string(),
     };
-    if !config.force && problem.is_none() && read_error.is_none() {
-        if let Some(existing) = std::fs::read_to_string(&path)
-            .ok()
-            .and_then(|text| report::json::parse_record(&text).ok())
-        {
-            if existing.provenance == provenance && existing.trial == spec.name {
-                return Ok((existing, true));
+    let (audio_file, frames_file) = (path_string(&spec.audio), path_string(&spec.frames));
+    let same_manifest = |r: &TrialRecord| {
+        r.group == spec.group && r.audio_file == audio_file && r.frames_file == frames_file
+    };
+    let done = |record, outcome| Processed {
+        record,
+        outcome,
+        note: None,
+    };
+    if let Some(existing) = existing.filter(|e| e.status != Status::Error) {
+        match &read_error {
+            // The inputs are there but cannot be read now (a drive not mounted, no
+            // permission): the earlier good record stays.
+            Some(e @ Error::Io { .. }) => {
+                return Ok(Processed {
+                    record: existing,
+                    outcome: TrialOutcome::Kept,
+                    note: Some(e.to_string()),
+                });
             }
+            None if !config.force && existing.provenance == provenance => {
+                if same_manifest(&existing) {
+                    return Ok(done(existing, TrialOutcome::Reused));
+                }
+                let mut record = existing;
+                record.group = spec.group.clone();
+                record.audio_file = audio_file;
+                record.frames_file = frames_file;
+                atomic::write_atomic(&path, report::json::record_json(&record).as_bytes())?;
+                return Ok(done(record, TrialOutcome::Rewritten));
+            }
+            _ => {}
         }
     }
-    let mut record = match problem.or(read_error) {
-        Some(message) => {
+    let mut record = match read_error {
+        Some(e) => {
+            let message = match e {
+                Error::Usage(m) => m,
+                e => e.to_string(),
+            };
             let mut r = TrialRecord::failed(&spec.name, spec.group.as_deref(), message);
-            r.audio_file = spec.audio.as_deref().map(|p| p.display().to_string());
-            r.frames_file = spec.frames.as_deref().map(|p| p.display().to_string());
+            r.audio_file = audio_file;
+            r.frames_file = frames_file;
             r
         }
         None => {
@@ -221,189 +495,16 @@ fn process(
         }
     };
     record.provenance = provenance;
-    atomic::write_atomic(&path, report::json::record_json(&record).as_bytes())?;
-    Ok((record, false))
-}
-
-/// Rebuilds `summary.csv` and `groups.csv` in `out_dir` from the records in `out_dir/trials`,
-/// in name order, reading one record at a time. Unreadable record files are skipped and
-/// returned.
-pub fn write_summary(out_dir: &Path) -> Result<Vec<PathBuf>> {
-    let paths = record_paths(out_dir)?;
-    let summary = out_dir.join("summary.csv");
-    let csv_err = |e: csv::Error| Error::malformed(&summary, e.to_string());
-    let mut unreadable = Vec::new();
-    let mut groups = report::groups::GroupTable::default();
-    let mut buf = Vec::new();
-    {
-        let mut w = csv::Writer::from_writer(&mut buf);
-        w.write_record(report::csv::SUMMARY_COLUMNS)
-            .map_err(csv_err)?;
-        for p in paths {
-            match std::fs::read_to_string(&p)
-                .ok()
-                .and_then(|t| report::json::parse_record(&t).ok())
-            {
-                Some(r) => {
-                    w.write_record(report::csv::summary_row(&r))
-                        .map_err(csv_err)?;
-                    groups.add(&r);
-                }
-                None => unreadable.push(p),
-            }
-        }
-        w.flush().map_err(|e| Error::io(&summary, e))?;
+    let text = report::json::record_json(&record);
+    // An error record written before, word for word, is current: no need to write it again.
+    let unchanged = !config.force
+        && record.status == Status::Error
+        && read_record(&path).is_some_and(|old| old == record);
+    if unchanged {
+        return Ok(done(record, TrialOutcome::Reused));
     }
-    atomic::write_atomic(&summary, &buf)?;
-    let groups_path = out_dir.join("groups.csv");
-    let mut gbuf = Vec::new();
-    groups
-        .write(&mut gbuf)
-        .map_err(|e| Error::malformed(&groups_path, e.to_string()))?;
-    atomic::write_atomic(&groups_path, &gbuf)?;
-    Ok(unreadable)
-}
-
-/// Counts of a written review report.
-#[derive(Debug, Clone, Default, PartialEq, Eq)]
-pub struct ReportOutcome {
-    pub trials: usize,
-    /// Trials whose input files could not be read again (their figures show the record only).
-    pub inputs_missing: usize,
-}
-
-fn record_paths(out_dir: &Path) -> Result<Vec<PathBuf>> {
-    let dir = trials_dir(out_dir);
-    let mut paths: Vec<PathBuf> = std::fs::read_dir(&dir)
-        .map_err(|e| Error::io(&dir, e))?
-        .flatten()
-        .map(|e| e.path())
-        .filter(|p| {
-            p.extension().is_some_and(|e| e == "json")
-                && !p
-                    .file_name()
-                    .is_some_and(|n| n.to_string_lossy().starts_with('.'))
-        })
-        .collect();
-    paths.sort();
-    Ok(paths)
-}
-
-/// Writes `out_dir/report.html` and `out_dir/plots/NAME.svg` from the records, re-reading each
-/// trial's inputs (paths as recorded) to draw the evidence. One trial is held at a time.
-pub fn write_report(out_dir: &Path, rig: &RigProfile) -> Result<ReportOutcome> {
-    use report::html::{ReviewPage, TrialRow};
-    let plots = out_dir.join("plots");
-    std::fs::create_dir_all(&plots).map_err(|e| Error::io(&plots, e))?;
-    let mut outcome = ReportOutcome::default();
-    let mut page = ReviewPage {
-        title: format!("latchtime review: {}", out_dir.display()),
-        ..ReviewPage::default()
-    };
-    let mut flag_counts = vec![0usize; report::groups::FLAGS.len()];
-    let mut by_group: std::collections::BTreeMap<String, [Vec<f64>; 3]> = Default::default();
-    let mut residuals = Vec::new();
-    let mut tolerances = Vec::new();
-    let options = crate::decode::FrameOptions::from(rig);
-    for path in record_paths(out_dir)? {
-        let Some(record) = std::fs::read_to_string(&path)
-            .ok()
-            .and_then(|t| report::json::parse_record(&t).ok())
-        else {
-            continue;
-        };
-        outcome.trials += 1;
-        let stem = path
-            .file_stem()
-            .map(|s| s.to_string_lossy().into_owned())
-            .unwrap_or_default();
-        let load =
-            |file: &Option<String>| file.as_ref().map(|f| (PathBuf::from(f), std::fs::read(f)));
-        let audio = load(&record.audio_file).and_then(|(p, bytes)| match bytes {
-            Ok(b) => crate::decode::decode_audio(&p, &b, rig.audio_channel).ok(),
-            Err(_) => None,
-        });
-        let frames = load(&record.frames_file).and_then(|(p, bytes)| match bytes {
-            Ok(b) => crate::decode::decode_frames(&p, &b, &options).ok(),
-            Err(_) => None,
-        });
-        if (record.audio_file.is_some() && audio.is_none())
-            || (record.frames_file.is_some() && frames.is_none())
-        {
-            outcome.inputs_missing += 1;
-        }
-        // Frames are drawn on the fitted frame clock, as the detectors saw them.
-        let frames = frames.map(|mut f| {
-            f.time_s = crate::detect::clock::frame_clock(&f).time_s;
-            f
-        });
-        let offset_s = rig.video_offset_s + rig.acoustic_delay_s();
-        let figure =
-            report::plots::trial_figure(&record, audio.as_ref(), frames.as_ref(), offset_s)
-                .map_err(|e| Error::malformed(&path, format!("cannot draw the figure: {e}")))?;
-        let figure_name = format!("{stem}.svg");
-        atomic::write_atomic(&plots.join(&figure_name), figure.as_bytes())?;
-        for (i, f) in report::groups::FLAGS.iter().enumerate() {
-            if record.flags.contains(f) {
-                flag_counts[i] += 1;
-            }
-        }
-        if record.status != Status::Error {
-            let g = by_group
-                .entry(record.group.clone().unwrap_or_else(|| "(none)".into()))
-                .or_default();
-            for (k, v) in [record.loading_ms, record.release_ms, record.amplification]
-                .into_iter()
-                .enumerate()
-            {
-                if let Some(v) = v.filter(|v| v.is_finite()) {
-                    g[k].push(v);
-                }
-            }
-        }
-        if let Some(sync) = &record.sync {
-            residuals.push((residuals.len() as f64, sync.residual_ms));
-            tolerances.push(sync.tolerance_ms);
-        }
-        page.rows.push(TrialRow::from_record(&record, figure_name));
-    }
-    page.flag_counts = report::groups::FLAGS
-        .iter()
-        .zip(flag_counts)
-        .map(|(f, n)| (f.as_str().to_string(), n))
-        .collect();
-    for (k, title) in [
-        "loading_ms by group",
-        "release_ms by group",
-        "amplification by group",
-    ]
-    .iter()
-    .enumerate()
-    {
-        let data: Vec<report::plots::StripGroup> = by_group
-            .iter()
-            .map(|(g, v)| {
-                let summary = report::groups::stats(&v[k]).map(|s| (s.mean, s.ci_low, s.ci_high));
-                (g.clone(), v[k].clone(), summary)
-            })
-            .collect();
-        let chart = report::plots::strip_chart(title, &data)
-            .map_err(|e| Error::malformed(out_dir, format!("cannot draw {title}: {e}")))?;
-        page.group_charts.push(chart);
-    }
-    if !residuals.is_empty() {
-        let tolerance = crate::detect::median(&tolerances);
-        page.residual_chart = Some(
-            report::plots::residual_chart(&residuals, tolerance).map_err(|e| {
-                Error::malformed(out_dir, format!("cannot draw the clock residuals: {e}"))
-            })?,
-        );
-    }
-    atomic::write_atomic(
-        &out_dir.join("report.html"),
-        report::html::render(&page).as_bytes(),
-    )?;
-    Ok(outcome)
+    atomic::write_atomic(&path, text.as_bytes())?;
+    Ok(done(record, TrialOutcome::Analysed))
 }
 
 #[cfg(test)]

@@ -3,8 +3,12 @@
 //!
 //! Exit codes: 0 the command ran (trials may be flagged or failed); 1 `trial` could not
 //! analyse its trial; 2 usage error (bad option, missing input, bad rig profile); 3 the output
-//! folder cannot be written; 4 `--strict` and at least one trial failed.
+//! folder cannot be written (the run stopped at the first failed write); 4 `--strict` and at
+//! least one trial failed, or discovery warned; 5 some trials' inputs could not be read and
+//! their earlier records were kept; 6 another run writes the results folder; 7 the folder's
+//! records were made with different settings, so no tables were written.
 
+mod campaign;
 mod inspect;
 mod progress;
 
@@ -13,7 +17,6 @@ use std::process::ExitCode;
 
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
-use crate::batch::{self, BatchConfig};
 use crate::error::Error;
 use crate::measure::Status;
 use crate::pipeline::{self, Scratch, TrialSpec};
@@ -121,6 +124,9 @@ struct RigArgs {
     /// Frame CSV column for loading onset (overrides the rig profile).
     #[arg(long)]
     loading_column: Option<String>,
+    /// Audio clock minus video clock, seconds (overrides the rig profile's video_offset_s).
+    #[arg(long, allow_hyphen_values = true)]
+    video_offset_s: Option<f64>,
 }
 
 /// `--channel N` or `--channel auto`.
@@ -188,12 +194,17 @@ struct BatchArgs {
     /// Also write report.html and plots/NAME.svg for review.
     #[arg(long)]
     report: bool,
+    /// Also take trials in subfolders; their names are paths such as day1/t01.
+    #[arg(long)]
+    recursive: bool,
 }
 
 #[derive(Args, Debug)]
 struct ReportArgs {
     /// Output folder of a batch.
     dir: PathBuf,
+    /// Settings for a folder made by a version without run files; otherwise the batch's
+    /// settings (in run.json) are used and these are refused.
     #[command(flatten)]
     rig: RigArgs,
 }
@@ -291,6 +302,9 @@ const EXIT_TRIAL_FAILED: u8 = 1;
 const EXIT_USAGE: u8 = 2;
 const EXIT_OUTPUT: u8 = 3;
 const EXIT_STRICT: u8 = 4;
+const EXIT_INPUTS_KEPT: u8 = 5;
+const EXIT_BUSY: u8 = 6;
+const EXIT_MIXED: u8 = 7;
 
 fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
     eprintln!("latchtime: {message}");
@@ -303,6 +317,16 @@ fn load_rig(path: Option<&Path>) -> Result<RigProfile, Error> {
 }
 
 impl RigArgs {
+    /// Whether any rig setting was given on the command line.
+    fn any_given(&self) -> bool {
+        self.rig.is_some()
+            || self.fps.is_some()
+            || self.channel.is_some()
+            || self.column.is_some()
+            || self.loading_column.is_some()
+            || self.video_offset_s.is_some()
+    }
+
     fn profile(&self) -> Result<RigProfile, Error> {
         let mut rig = load_rig(self.rig.as_deref())?;
         if self.fps.is_some() {
@@ -322,6 +346,9 @@ impl RigArgs {
         if self.loading_column.is_some() {
             rig.loading_column = self.loading_column.clone();
         }
+        if let Some(offset) = self.video_offset_s {
+            rig.video_offset_s = offset;
+        }
         rig.validate()?;
         Ok(rig)
     }
@@ -332,19 +359,13 @@ pub fn run() -> ExitCode {
     let cli = Cli::parse();
     match cli.command {
         Command::Trial(args) => run_trial(args),
-        Command::Batch(args) => run_batch(args),
+        Command::Batch(args) => campaign::run_batch(args),
         Command::Summarize(args) => {
             let GroupBy::Group = args.by;
-            run_summarize(&args.dir)
+            campaign::run_summarize(&args.dir)
         }
         Command::Synth(args) => run_synth(args),
-        Command::Report(args) => {
-            let rig = match args.rig.profile() {
-                Ok(r) => r,
-                Err(e) => return fail(EXIT_USAGE, e),
-            };
-            run_report(&args.dir, &rig)
-        }
+        Command::Report(args) => campaign::run_report_command(args),
         Command::Validate(args) => run_validate(args),
         Command::Inspect(stage) => match inspect::run(&stage) {
             Ok(value) => {
@@ -379,102 +400,6 @@ fn run_trial(args: TrialArgs) -> ExitCode {
         ExitCode::from(EXIT_TRIAL_FAILED)
     } else {
         ExitCode::SUCCESS
-    }
-}
-
-fn run_batch(args: BatchArgs) -> ExitCode {
-    let rig = match args.rig.profile() {
-        Ok(r) => r,
-        Err(e) => return fail(EXIT_USAGE, e),
-    };
-    let trials = match batch::discover(&args.input) {
-        Ok(t) => t,
-        Err(e) => return fail(EXIT_USAGE, e),
-    };
-    if let Err(e) = std::fs::create_dir_all(&args.out) {
-        return fail(EXIT_OUTPUT, format!("{}: {e}", args.out.display()));
-    }
-    let config = BatchConfig {
-        out_dir: args.out.clone(),
-        rig,
-        jobs: args.jobs.unwrap_or(0),
-        force: args.force,
-        shard: args.shard,
-    };
-    let sink = progress::Bar::new(args.quiet);
-    let outcome = match batch::run(trials, &config, &sink) {
-        Ok(o) => o,
-        Err(e) => return fail(EXIT_OUTPUT, e),
-    };
-    match batch::write_summary(&args.out) {
-        Ok(unreadable) => {
-            for p in unreadable {
-                eprintln!(
-                    "latchtime: {}: not a readable record, left out of summary.csv",
-                    p.display()
-                );
-            }
-        }
-        Err(e) => return fail(EXIT_OUTPUT, e),
-    }
-    if !args.quiet {
-        eprintln!(
-            "latchtime: {} trials ({} analysed, {} current records reused): {} ok, {} flagged, {} errors -> {}",
-            outcome.trials,
-            outcome.analysed,
-            outcome.reused,
-            outcome.ok,
-            outcome.flagged,
-            outcome.errors,
-            args.out.join("summary.csv").display()
-        );
-    }
-    if args.report {
-        let code = run_report(&args.out, &config.rig);
-        if code != ExitCode::SUCCESS {
-            return code;
-        }
-    }
-    if args.strict && outcome.errors > 0 {
-        return ExitCode::from(EXIT_STRICT);
-    }
-    ExitCode::SUCCESS
-}
-
-fn run_report(dir: &Path, rig: &RigProfile) -> ExitCode {
-    if !dir.join("trials").is_dir() {
-        return fail(
-            EXIT_USAGE,
-            format!("{}: not a batch output folder (no trials/)", dir.display()),
-        );
-    }
-    match batch::write_report(dir, rig) {
-        Ok(o) => {
-            if o.inputs_missing > 0 {
-                eprintln!(
-                    "latchtime: {} of {} trials' input files could not be read again; their figures show the record only",
-                    o.inputs_missing, o.trials
-                );
-            }
-            ExitCode::SUCCESS
-        }
-        Err(e) => fail(EXIT_OUTPUT, e),
-    }
-}
-
-fn run_summarize(dir: &Path) -> ExitCode {
-    match batch::write_summary(dir) {
-        Ok(unreadable) => {
-            for p in unreadable {
-                eprintln!(
-                    "latchtime: {}: not a readable record, left out",
-                    p.display()
-                );
-            }
-            ExitCode::SUCCESS
-        }
-        Err(e @ Error::Io { .. }) if !dir.is_dir() => fail(EXIT_USAGE, e),
-        Err(e) => fail(EXIT_OUTPUT, e),
     }
 }
 

@@ -1,5 +1,8 @@
 //! The campaign table `summary.csv`: one row per trial, written from records. Times on their
 //! own clock in seconds with 7 decimals (0.1 us), durations in ms with 4, ratios with 5.
+//!
+//! Every cell is made safe for spreadsheets ([`safe_cell`]): text that a spreadsheet would run
+//! as a formula gets a leading single quote, as the OWASP "CSV Injection" page recommends.
 
 use std::io::Write;
 
@@ -35,8 +38,34 @@ fn fixed(v: Option<f64>, decimals: usize) -> String {
     v.map_or_else(String::new, |v| format!("{v:.decimals$}"))
 }
 
-/// The summary row of one record, as fields matching [`SUMMARY_COLUMNS`].
+/// Characters that make a spreadsheet read a cell as a formula when they start it: `=`, `+`,
+/// `-`, `@`, tab and carriage return (OWASP, "CSV Injection").
+pub const FORMULA_STARTS: [char; 6] = ['=', '+', '-', '@', '\t', '\r'];
+
+/// `cell` as a spreadsheet may safely open it: text starting with one of [`FORMULA_STARTS`]
+/// gets a leading single quote (spreadsheets show it as text; the quote is the OWASP
+/// recommendation). Plain numbers such as `-0.5` or `-1e-3` stay as they are, so they stay
+/// numbers.
+pub fn safe_cell(cell: String) -> String {
+    let risky = cell.starts_with(FORMULA_STARTS);
+    let number = cell
+        .bytes()
+        .all(|b| b.is_ascii_digit() || b".eE+-".contains(&b))
+        && cell.parse::<f64>().is_ok_and(f64::is_finite);
+    if risky && !number {
+        format!("'{cell}")
+    } else {
+        cell
+    }
+}
+
+/// The summary row of one record, as fields matching [`SUMMARY_COLUMNS`], each made safe with
+/// [`safe_cell`].
 pub fn summary_row(r: &TrialRecord) -> Vec<String> {
+    raw_summary_row(r).into_iter().map(safe_cell).collect()
+}
+
+fn raw_summary_row(r: &TrialRecord) -> Vec<String> {
     let osc = r.oscillation.as_ref();
     vec![
         r.trial.clone(),
@@ -94,5 +123,33 @@ mod tests {
         let text = String::from_utf8(buf).unwrap();
         assert!(text.contains("84.0000"));
         assert!(text.contains("\"bad, very bad\""));
+    }
+
+    #[test]
+    fn formula_like_cells_become_text_and_numbers_stay_numbers() {
+        // The OWASP list of formula starts: = + - @ tab CR.
+        for (cell, want) in [
+            ("=HYPERLINK(\"x\")", "'=HYPERLINK(\"x\")"),
+            ("+1+1", "'+1+1"),
+            ("-cmd", "'-cmd"),
+            ("@SUM(A1)", "'@SUM(A1)"),
+            ("\tx", "'\tx"),
+            ("\rx", "'\rx"),
+            ("-0.5", "-0.5"),
+            ("-1e-3", "-1e-3"),
+            ("+2", "+2"),
+            ("-inf", "'-inf"),
+            ("-", "'-"),
+            ("trial-01", "trial-01"),
+            ("", ""),
+        ] {
+            assert_eq!(safe_cell(cell.to_string()), want, "{cell:?}");
+        }
+        let mut r = TrialRecord::empty("=1+2", Some("@g"));
+        r.loading_ms = Some(-0.5);
+        let row = summary_row(&r);
+        assert_eq!(row[0], "'=1+2");
+        assert_eq!(row[1], "'@g");
+        assert_eq!(row[9], "-0.5000");
     }
 }

@@ -179,7 +179,8 @@ impl GroupTable {
         h
     }
 
-    /// Rows of `groups.csv`: each group in name order, then the row over all trials.
+    /// Rows of `groups.csv`: each group in name order, then the row over all trials; cells made
+    /// safe for spreadsheets (group names come from the manifest).
     pub fn rows(&self) -> Vec<Vec<String>> {
         let fmt = |v: f64| {
             if v.is_finite() {
@@ -216,7 +217,7 @@ impl GroupTable {
                         }
                     }
                 }
-                row
+                row.into_iter().map(super::csv::safe_cell).collect()
             })
             .collect()
     }

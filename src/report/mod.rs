@@ -1,6 +1,7 @@
 //! Output formats, kept apart from measurement: one module per format. Every format is
 //! deterministic (no timestamps, fixed float formatting) so outputs can be compared byte for byte.
 
+pub mod campaign;
 pub mod csv;
 pub mod groups;
 pub mod html;
