@@ -189,12 +189,21 @@ pub struct TrialRecord {
     pub loading_onset_uncertainty_ms: Option<f64>,
     pub loading_onset_early_s: Option<f64>,
     pub loading_onset_late_s: Option<f64>,
+    /// The frames begin while loading is already under way (null without frames).
+    #[serde(default)]
+    pub loading_before_record: Option<bool>,
     pub latch_release_s: Option<f64>,
     pub latch_release_sd_ms: Option<f64>,
     pub latch_release_video_s: Option<f64>,
     pub latch_release_video_sd_ms: Option<f64>,
     pub motion_peak_s: Option<f64>,
     pub motion_peak_sd_ms: Option<f64>,
+    /// Where the fast phase ends: the motion peak, or, for a release that does not turn
+    /// (heavily damped), where its speed has fallen back to the noise (video clock).
+    #[serde(default)]
+    pub fast_phase_end_s: Option<f64>,
+    #[serde(default)]
+    pub fast_phase_end_sd_ms: Option<f64>,
     pub loading_ms: Option<f64>,
     pub loading_ms_sd: Option<f64>,
     pub release_ms: Option<f64>,
@@ -242,12 +251,15 @@ impl TrialRecord {
             loading_onset_uncertainty_ms: None,
             loading_onset_early_s: None,
             loading_onset_late_s: None,
+            loading_before_record: None,
             latch_release_s: None,
             latch_release_sd_ms: None,
             latch_release_video_s: None,
             latch_release_video_sd_ms: None,
             motion_peak_s: None,
             motion_peak_sd_ms: None,
+            fast_phase_end_s: None,
+            fast_phase_end_sd_ms: None,
             loading_ms: None,
             loading_ms_sd: None,
             release_ms: None,
@@ -364,10 +376,14 @@ pub fn measure(
         if video.clock.missing_frames > 0 {
             flags.push(Flag::FrameGaps);
         }
-        record.loading_onset_s = video.loading.as_ref().map(|l| l.onset_s);
-        record.loading_onset_uncertainty_ms = video.loading.as_ref().map(|l| l.uncertainty_ms);
-        record.loading_onset_early_s = video.loading.as_ref().map(|l| l.early_s);
-        record.loading_onset_late_s = video.loading.as_ref().map(|l| l.late_s);
+        // A loading under way when the record began has no onset on this record.
+        let onset = video.loading.as_ref().filter(|l| !l.before_record);
+        record.loading_before_record =
+            Some(video.loading.as_ref().is_some_and(|l| l.before_record));
+        record.loading_onset_s = onset.map(|l| l.onset_s);
+        record.loading_onset_uncertainty_ms = onset.map(|l| l.uncertainty_ms);
+        record.loading_onset_early_s = onset.map(|l| l.early_s);
+        record.loading_onset_late_s = onset.map(|l| l.late_s);
         if video.loading.is_none() {
             flags.push(Flag::NoLoading);
         }
@@ -380,6 +396,8 @@ pub fn measure(
                 record.latch_release_video_sd_ms = Some(m.release_sd_s * 1e3);
                 record.motion_peak_s = Some(m.motion_peak_s);
                 record.motion_peak_sd_ms = Some(m.motion_peak_sd_s * 1e3);
+                record.fast_phase_end_s = Some(m.fast_phase_end_s);
+                record.fast_phase_end_sd_ms = Some(m.fast_phase_end_sd_s * 1e3);
                 if let Some(click_s) = record.click_onset_s {
                     // The frame timing's share, and three standard uncertainties of the video
                     // release: a release the frames time poorly widens what counts as agreement.
@@ -527,6 +545,7 @@ mod tests {
                 late_s: 0.0165,
                 drift_per_s: -1.0,
                 f_statistic: 100.0,
+                before_record: false,
             }),
             oscillation: Some(from_ratio(50.0, 0.63, 5)),
             click_fits_frames: None,
