@@ -37,7 +37,8 @@ pub struct MeasuredRig {
     pub drift_per_noise: Option<f64>,
     /// Median time from a main click's onset to its last sample at -20 dB of its peak, ms.
     pub click_decay_ms: Option<f64>,
-    /// Median printing step of the time column over the frame period (None: written in full).
+    /// Median step of the last printed digit of the time column over the frame period (None
+    /// without a time column).
     pub timestamp_step_frames: Option<f64>,
     /// Shares of the trials measured that show each condition.
     pub shares: ConditionShares,
@@ -151,7 +152,13 @@ fn share(v: &[f64], holds: impl Fn(f64) -> bool) -> Option<f64> {
 /// trial's frames, where its video shows a release.
 fn frame_measures(series: &FrameSeries, video: &VideoEvents) -> FrameMeasures {
     let period_s = video.clock.period_s;
-    let step_frames = video.clock.timestamp_step_s.map(|s| s / period_s);
+    // The last printed digit's step, as written (the clock's own estimate reads a column of
+    // exact multiples of the period, 0.0010000 and so on, as printed in whole periods).
+    let step_frames = series
+        .time_step_s
+        .as_ref()
+        .and_then(|steps| median(&mut steps.clone()))
+        .map(|s| s / period_s);
     let Some(m) = &video.motion else {
         return FrameMeasures {
             step_frames,
