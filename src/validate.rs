@@ -1,24 +1,28 @@
 //! Validation on synthetic trials shaped like a lab's own rig: how precise the detectors are at
 //! this sample rate, frame rate and noise level, before a campaign is trusted. Trials of every
-//! kind are synthesised with known truth (with latch creep, overdamped releases, gently starting
-//! loading drifts, dropped frames and out-of-sync clicks), written to bytes exactly as files
-//! would be, analysed by the same pipeline as a batch, and compared event by event and flag by
-//! flag. Pure computation: nothing is printed or written here.
+//! kind are synthesised with known truth from weighted families (`synth::Family`: release
+//! shapes, fast ringing, small jumps, ramped drives, records that start mid-loading, rounded
+//! exports, heavy damping, creep, ringing clicks, latch-set ticks, the original trial, and a
+//! held-out family no setting is tuned on), with dropped frames and out-of-sync clicks, written
+//! to bytes exactly as files would be, analysed by the same pipeline as a batch, and compared
+//! event by event and flag by flag, over all trials and per family. Pure computation: nothing
+//! is printed or written here.
 
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use serde::Serialize;
 
-use crate::decode;
-use crate::detect;
-use crate::error::{Error, Result};
 use crate::measure::{Flag, TrialRecord};
 use crate::pipeline::{self, Scratch, TrialInputs, TrialSpec};
 use crate::report::groups::quantile_sorted;
 use crate::rig::RigProfile;
-use crate::synth::{self, SampleEncoding, SynthConfig, TrialKind};
+use crate::synth::{self, Family, SampleEncoding, SynthConfig, TrialKind};
+
+mod like;
+
+pub use like::{measure_like, ConditionShares, MeasuredRig};
 
 /// What to synthesise.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -34,6 +38,9 @@ pub struct ValidateConfig {
     pub video_noise: f64,
     /// Round timestamps to this many significant digits, as some exporters do.
     pub timestamp_digits: Option<u32>,
+    /// Families drawn from, with their weights (a trial's family is drawn from its own random
+    /// stream, so the kinds and trial seeds do not depend on the families).
+    pub families: Vec<(Family, f64)>,
 }
 
 impl Default for ValidateConfig {
@@ -47,103 +54,9 @@ impl Default for ValidateConfig {
             duration_s: 0.4,
             video_noise: 0.5,
             timestamp_digits: None,
+            // Every family, equally often.
+            families: Family::ALL.into_iter().map(|f| (f, 1.0)).collect(),
         }
-    }
-}
-
-/// Recording properties measured from a lab's own trials (`--like`).
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct MeasuredRig {
-    pub trials_read: usize,
-    pub sample_rate_hz: Option<u32>,
-    pub fps: Option<f64>,
-    /// 10th and 90th percentile of the main clicks' SNR, dB.
-    pub snr_db: Option<(f64, f64)>,
-    /// Per-frame noise relative to the fast-phase jump.
-    pub noise_per_jump: Option<f64>,
-}
-
-/// Reads up to 50 trials of `folder` and measures their sample rate, frame rate, click SNR
-/// and video noise, to shape a validation like them.
-pub fn measure_like(folder: &Path, rig: &RigProfile) -> Result<MeasuredRig> {
-    let trials = crate::batch::discover(folder)?;
-    let mut rates = Vec::new();
-    let mut fps = Vec::new();
-    let mut snr = Vec::new();
-    let mut noise = Vec::new();
-    let mut read = 0;
-    let mut scratch = Scratch::default();
-    for t in trials.iter().take(50) {
-        let Ok(inputs) = pipeline::read_inputs(&t.spec) else {
-            continue;
-        };
-        read += 1;
-        let mut expected = None;
-        if let (Some(path), Some(bytes)) = (&t.spec.frames, &inputs.frames) {
-            if let Ok(f) = decode::decode_frames(path, bytes, &rig.into()) {
-                let v = detect::detect_video(&f, rig);
-                expected = detect::expected_click(&v, rig);
-                fps.push(1.0 / v.clock.period_s);
-                if let Some(m) = &v.motion {
-                    if m.jump != 0.0 {
-                        noise.push(v.noise_sigma / m.jump.abs());
-                    }
-                }
-            }
-        }
-        if let (Some(path), Some(bytes)) = (&t.spec.audio, &inputs.audio) {
-            if let Ok(a) = decode::decode_audio(path, bytes, rig.audio_channel) {
-                rates.push(a.sample_rate_hz);
-                let ev = detect::detect_audio(&a, rig, &mut scratch.click, expected);
-                if let Some(m) = ev.main() {
-                    snr.push(m.snr_db);
-                }
-            }
-        }
-    }
-    if read == 0 {
-        return Err(Error::Usage(format!(
-            "{}: no readable trials to measure",
-            folder.display()
-        )));
-    }
-    let median = |v: &mut Vec<f64>| {
-        v.sort_by(f64::total_cmp);
-        (!v.is_empty()).then(|| quantile_sorted(v, 0.5))
-    };
-    let snr_range = (!snr.is_empty()).then(|| {
-        snr.sort_by(f64::total_cmp);
-        (
-            quantile_sorted(&snr, 0.1),
-            quantile_sorted(&snr, 0.9).max(quantile_sorted(&snr, 0.1) + 1.0),
-        )
-    });
-    Ok(MeasuredRig {
-        trials_read: read,
-        sample_rate_hz: median(&mut rates).map(|r| r.round() as u32),
-        fps: median(&mut fps),
-        snr_db: snr_range,
-        noise_per_jump: median(&mut noise),
-    })
-}
-
-impl ValidateConfig {
-    /// Applies what was measured from a lab's recordings.
-    pub fn shaped_like(mut self, m: &MeasuredRig) -> Self {
-        if let Some(r) = m.sample_rate_hz {
-            self.sample_rate_hz = r;
-        }
-        if let Some(f) = m.fps {
-            self.fps = f;
-        }
-        if let Some(s) = m.snr_db {
-            self.snr_db = s;
-        }
-        if let Some(n) = m.noise_per_jump {
-            // The synthetic jump is 40-70 units, 55 on average.
-            self.video_noise = n * 55.0;
-        }
-        self
     }
 }
 
@@ -185,9 +98,23 @@ pub struct ValidationReport {
     pub errors: usize,
     pub events: Vec<EventAccuracy>,
     pub flags: Vec<FlagAccuracy>,
+    /// The same per family (all SNR bands pooled), the held-out family last.
+    pub families: Vec<FamilyAccuracy>,
     /// The trials where a scored flag or the click went wrong, to look at one by one
     /// (`latchtime synth --seed` does not reproduce them; the seed here is per trial).
     pub disagreements: Vec<Disagreement>,
+}
+
+/// The accuracy of one family's trials.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FamilyAccuracy {
+    pub family: Family,
+    /// Kept out of every tuning loop.
+    pub held_out: bool,
+    pub trials: usize,
+    pub errors: usize,
+    pub events: Vec<EventAccuracy>,
+    pub flags: Vec<FlagAccuracy>,
 }
 
 /// One synthetic trial whose flags or click disagree with its truth.
@@ -195,6 +122,7 @@ pub struct ValidationReport {
 pub struct Disagreement {
     pub trial: String,
     pub kind: TrialKind,
+    pub family: Family,
     /// SNR of the (first) click as synthesised, dB.
     pub click_snr_db: Option<f64>,
     /// Scored flags the truth has and the record lacks.
@@ -231,10 +159,137 @@ const SCORED_FLAGS: [Flag; 7] = [
     Flag::NoLoading,
 ];
 
+/// The events scored, with their units, in table order.
+const EVENTS: [(&str, &str); 11] = [
+    ("click_onset_s", "us"),
+    ("latch_release_s (audio-refined)", "ms"),
+    ("latch_release_video_s", "frames"),
+    ("motion_peak_s", "frames"),
+    ("loading_onset_s", "% of loading"),
+    ("loading_ms", "%"),
+    ("release_ms", "%"),
+    ("amplification", "%"),
+    ("amplitude_ratio", "absolute"),
+    // The loading targets hold where the drift is at least 6 noise SD.
+    ("loading_onset_s, drift >= 6 sd", "% of loading"),
+    ("loading_ms, drift >= 6 sd", "%"),
+];
+
+/// Drift over noise SD from which the loading targets apply.
+const CLEAR_DRIFT_SIGMA: f64 = 6.0;
+
+#[derive(Clone, Copy)]
 struct Sample {
     snr_db: f64,
     value: Option<f64>,
     covered: Option<bool>,
+}
+
+/// Counts of one flag decision: true and false positives, false and true negatives.
+type Counts = (usize, usize, usize, usize);
+
+/// One trial scored against its truth.
+struct TrialScore {
+    /// (index into `EVENTS`, sample).
+    samples: Vec<(usize, Sample)>,
+    /// Per scored flag: (the truth has it, the record has it).
+    flags: Vec<(bool, bool)>,
+    /// double_click without second clicks under `AUDIBLE_DB`, when the trial counts there.
+    audible_double: Option<(bool, bool)>,
+    click_missed: bool,
+    error: bool,
+}
+
+/// Scores pooled over trials.
+struct Tally {
+    trials: usize,
+    errors: usize,
+    events: Vec<Vec<Sample>>,
+    flags: Vec<Counts>,
+    audible_double: Counts,
+}
+
+impl Tally {
+    fn new() -> Self {
+        Tally {
+            trials: 0,
+            errors: 0,
+            events: vec![Vec::new(); EVENTS.len()],
+            flags: vec![(0, 0, 0, 0); SCORED_FLAGS.len()],
+            audible_double: (0, 0, 0, 0),
+        }
+    }
+
+    fn add(&mut self, score: &TrialScore) {
+        self.trials += 1;
+        self.errors += usize::from(score.error);
+        for (slot, sample) in &score.samples {
+            self.events[*slot].push(*sample);
+        }
+        for (counts, (want, got)) in self.flags.iter_mut().zip(&score.flags) {
+            tally(counts, *want, *got);
+        }
+        if let Some((want, got)) = score.audible_double {
+            tally(&mut self.audible_double, want, got);
+        }
+    }
+
+    /// Event rows per SNR band (bands without trials left out, except "all").
+    fn event_rows(&self, bands: &[(&str, f64, f64)]) -> Vec<EventAccuracy> {
+        let mut rows = Vec::new();
+        for ((event, unit), samples) in EVENTS.iter().zip(&self.events) {
+            for (band, lo, hi) in bands {
+                let in_band: Vec<&Sample> = samples
+                    .iter()
+                    .filter(|s| s.snr_db >= *lo && s.snr_db < *hi)
+                    .collect();
+                if in_band.is_empty() && *band != "all" {
+                    continue;
+                }
+                rows.push(accuracy(event, band, unit, &in_band));
+            }
+        }
+        rows
+    }
+
+    fn flag_rows(&self) -> Vec<FlagAccuracy> {
+        let mut named: Vec<(String, Counts)> = SCORED_FLAGS
+            .iter()
+            .map(|f| f.as_str().to_string())
+            .zip(self.flags.iter().copied())
+            .collect();
+        named.insert(1, (DOUBLE_AUDIBLE_ROW.to_string(), self.audible_double));
+        named
+            .into_iter()
+            .map(|(flag, (tp, fp, fn_, tn))| FlagAccuracy {
+                flag,
+                true_positives: tp,
+                false_positives: fp,
+                false_negatives: fn_,
+                precision: (tp + fp > 0).then(|| tp as f64 / (tp + fp) as f64),
+                recall: (tp + fn_ > 0).then(|| tp as f64 / (tp + fn_) as f64),
+                false_alarm_rate: (fp + tn > 0).then(|| fp as f64 / (fp + tn) as f64),
+            })
+            .collect()
+    }
+}
+
+/// Misses, median and 95th percentile of the absolute errors, and interval coverage.
+fn accuracy(event: &str, band: &str, unit: &str, samples: &[&Sample]) -> EventAccuracy {
+    let mut errs: Vec<f64> = samples.iter().filter_map(|s| s.value).collect();
+    errs.sort_by(f64::total_cmp);
+    let covered: Vec<bool> = samples.iter().filter_map(|s| s.covered).collect();
+    EventAccuracy {
+        event: event.to_string(),
+        band: band.to_string(),
+        unit: unit.to_string(),
+        n: samples.len(),
+        misses: samples.len() - errs.len(),
+        median_abs_error: (!errs.is_empty()).then(|| quantile_sorted(&errs, 0.5)),
+        p95_abs_error: (!errs.is_empty()).then(|| quantile_sorted(&errs, 0.95)),
+        coverage_95: (!covered.is_empty())
+            .then(|| covered.iter().filter(|c| **c).count() as f64 / covered.len() as f64),
+    }
 }
 
 fn pick_kind(rng: &mut ChaCha8Rng) -> TrialKind {
@@ -246,6 +301,23 @@ fn pick_kind(rng: &mut ChaCha8Rng) -> TrialKind {
         70..=79 => TrialKind::Clipped,
         _ => TrialKind::OutOfSync,
     }
+}
+
+/// Draws a family by weight.
+fn pick_family(rng: &mut ChaCha8Rng, families: &[(Family, f64)]) -> Family {
+    let total: f64 = families.iter().map(|(_, w)| w.max(0.0)).sum();
+    let mut at = if total > 0.0 {
+        rng.gen_range(0.0..total)
+    } else {
+        0.0
+    };
+    for (family, weight) in families {
+        if at < weight.max(0.0) {
+            return *family;
+        }
+        at -= weight.max(0.0);
+    }
+    families.last().map_or(Family::Classic, |(f, _)| *f)
 }
 
 /// Synthesises `config.count` trials like the rig, analyses them and scores the results.
@@ -262,156 +334,139 @@ pub fn validate_keeping(
 ) -> (ValidationReport, Vec<synth::SynthTrial>) {
     let mut kept = Vec::new();
     let mut rng = ChaCha8Rng::seed_from_u64(config.seed);
+    // A stream of its own, so that one family alone gives the trials it always gave.
+    let mut family_rng = ChaCha8Rng::seed_from_u64(config.seed ^ 0x5eed_fa31_1e55_0001);
     let mut scratch = Scratch::default();
-    let mut events: Vec<(&'static str, &'static str, Vec<Sample>)> = vec![
-        ("click_onset_s", "us", Vec::new()),
-        ("latch_release_s (audio-refined)", "ms", Vec::new()),
-        ("latch_release_video_s", "frames", Vec::new()),
-        ("motion_peak_s", "frames", Vec::new()),
-        ("loading_onset_s", "% of loading", Vec::new()),
-        ("loading_ms", "%", Vec::new()),
-        ("release_ms", "%", Vec::new()),
-        ("amplification", "%", Vec::new()),
-        ("amplitude_ratio", "absolute", Vec::new()),
-    ];
-    let mut flag_counts = vec![(0usize, 0usize, 0usize, 0usize); SCORED_FLAGS.len()];
-    let mut errors = 0;
+    let mut overall = Tally::new();
+    let mut by_family: Vec<(Family, Tally)> = Vec::new();
     let mut disagreements = Vec::new();
-    let mut audible_double = (0usize, 0usize, 0usize, 0usize);
-    let period = 1.0 / config.fps;
     for i in 0..config.count {
         let kind = pick_kind(&mut rng);
-        let synth_config = SynthConfig {
-            sample_rate_hz: config.sample_rate_hz,
-            fps: config.fps,
-            duration_s: config.duration_s,
-            encoding: if config.sample_rate_hz > 100_000 {
-                SampleEncoding::Int24
-            } else {
-                SampleEncoding::Int16
-            },
-            click_snr_db: Some(config.snr_db),
-            video_noise: config.video_noise,
-            variety: true,
-            dropped_frames: if rng.gen_bool(0.1) {
-                rng.gen_range(1..=3)
-            } else {
-                0
-            },
-            timestamp_digits: config.timestamp_digits,
-            ..SynthConfig::default()
-        };
+        let family = pick_family(&mut family_rng, &config.families);
+        let synth_config = synth_config_for(config, family, &mut rng);
         let name = format!("validate-{i:05}");
         let trial = synth::generate(&name, kind, &synth_config, rig, rng.gen());
-        let inputs = TrialInputs {
-            audio: synth::wav_bytes(&trial),
-            frames: synth::frames_csv(&trial, config.timestamp_digits).map(String::into_bytes),
-        };
-        let spec = TrialSpec {
-            name: name.clone(),
-            group: None,
-            audio: Some(PathBuf::from(format!("{name}.wav"))),
-            frames: Some(PathBuf::from(format!("{name}.frames.csv"))),
-        };
-        let record = pipeline::analyze(&spec, &inputs, rig, &mut scratch);
-        if record.error.is_some() {
-            errors += 1;
-        }
-        let click_missed = score_trial(&record, &trial.truth, period, &mut events);
-        let (mut missed_flags, mut extra_flags) = (Vec::new(), Vec::new());
-        for (k, flag) in SCORED_FLAGS.iter().enumerate() {
-            let want = trial.truth.flags.contains(flag);
-            let got = record.flags.contains(flag);
-            tally(&mut flag_counts[k], want, got);
-            if want && !got {
-                missed_flags.push(*flag);
-            } else if got && !want {
-                extra_flags.push(*flag);
-            }
-        }
-        // double_click again, leaving out second clicks below the SNR floor the targets
-        // assume (10 dB); false positives count as before.
-        let want = trial.truth.flags.contains(&Flag::DoubleClick);
-        if !want
-            || trial
-                .truth
-                .second_click_snr_db
-                .is_some_and(|s| s >= AUDIBLE_DB)
-        {
-            tally(
-                &mut audible_double,
-                want,
-                record.flags.contains(&Flag::DoubleClick),
-            );
-        }
-        if click_missed || !missed_flags.is_empty() || !extra_flags.is_empty() {
-            disagreements.push(Disagreement {
-                trial: name,
-                kind,
-                click_snr_db: trial.truth.click_snr_db,
-                missed_flags,
-                extra_flags,
-                true_clicks_s: trial.truth.clicks_s.clone().unwrap_or_default(),
-                found_clicks_s: record.clicks_s.clone().unwrap_or_default(),
-            });
+        let record = analyze_trial(&trial, &name, config, rig, &mut scratch);
+        let score = score_trial(&record, &trial, 1.0 / config.fps);
+        overall.add(&score);
+        family_tally(&mut by_family, family).add(&score);
+        if let Some(d) = disagreement(&score, &trial, &record, family) {
+            disagreements.push(d);
             if keep {
                 kept.push(trial);
             }
         }
     }
-    let mut rows = Vec::new();
-    for (event, unit, samples) in &events {
-        for (band, lo, hi) in BANDS {
-            let in_band: Vec<&Sample> = samples
-                .iter()
-                .filter(|s| s.snr_db >= lo && s.snr_db < hi)
-                .collect();
-            if in_band.is_empty() && band != "all" {
-                continue;
-            }
-            let mut errs: Vec<f64> = in_band.iter().filter_map(|s| s.value).collect();
-            errs.sort_by(f64::total_cmp);
-            let covered: Vec<bool> = in_band.iter().filter_map(|s| s.covered).collect();
-            rows.push(EventAccuracy {
-                event: event.to_string(),
-                band: band.to_string(),
-                unit: unit.to_string(),
-                n: in_band.len(),
-                misses: in_band.len() - errs.len(),
-                median_abs_error: (!errs.is_empty()).then(|| quantile_sorted(&errs, 0.5)),
-                p95_abs_error: (!errs.is_empty()).then(|| quantile_sorted(&errs, 0.95)),
-                coverage_95: (!covered.is_empty())
-                    .then(|| covered.iter().filter(|c| **c).count() as f64 / covered.len() as f64),
-            });
-        }
-    }
-    let mut named: Vec<(String, (usize, usize, usize, usize))> = SCORED_FLAGS
-        .iter()
-        .map(|f| f.as_str().to_string())
-        .zip(flag_counts)
-        .collect();
-    named.insert(1, (DOUBLE_AUDIBLE_ROW.to_string(), audible_double));
-    let flags = named
+    by_family.sort_by_key(|(f, _)| (f.is_held_out(), *f));
+    let families = by_family
         .into_iter()
-        .map(|(flag, (tp, fp, fn_, tn))| FlagAccuracy {
-            flag,
-            true_positives: tp,
-            false_positives: fp,
-            false_negatives: fn_,
-            precision: (tp + fp > 0).then(|| tp as f64 / (tp + fp) as f64),
-            recall: (tp + fn_ > 0).then(|| tp as f64 / (tp + fn_) as f64),
-            false_alarm_rate: (fp + tn > 0).then(|| fp as f64 / (fp + tn) as f64),
+        .map(|(family, t)| FamilyAccuracy {
+            family,
+            held_out: family.is_held_out(),
+            trials: t.trials,
+            errors: t.errors,
+            events: t.event_rows(&BANDS[..1]),
+            flags: t.flag_rows(),
         })
         .collect();
     let report = ValidationReport {
         config: config.clone(),
         trials: config.count,
-        errors,
-        events: rows,
-        flags,
+        errors: overall.errors,
+        events: overall.event_rows(&BANDS),
+        flags: overall.flag_rows(),
+        families,
         disagreements,
     };
     (report, kept)
+}
+
+fn family_tally(by_family: &mut Vec<(Family, Tally)>, family: Family) -> &mut Tally {
+    let at = match by_family.iter().position(|(f, _)| *f == family) {
+        Some(at) => at,
+        None => {
+            by_family.push((family, Tally::new()));
+            by_family.len() - 1
+        }
+    };
+    &mut by_family[at].1
+}
+
+/// The recording settings of one validation trial (dropped frames drawn from `rng`).
+fn synth_config_for(config: &ValidateConfig, family: Family, rng: &mut ChaCha8Rng) -> SynthConfig {
+    SynthConfig {
+        sample_rate_hz: config.sample_rate_hz,
+        fps: config.fps,
+        duration_s: config.duration_s,
+        encoding: if config.sample_rate_hz > 100_000 {
+            SampleEncoding::Int24
+        } else {
+            SampleEncoding::Int16
+        },
+        click_snr_db: Some(config.snr_db),
+        video_noise: config.video_noise,
+        variety: true,
+        dropped_frames: if rng.gen_bool(0.1) {
+            rng.gen_range(1..=3)
+        } else {
+            0
+        },
+        timestamp_digits: config.timestamp_digits,
+        family,
+        ..SynthConfig::default()
+    }
+}
+
+/// Runs the batch pipeline on the trial's bytes, as written to files.
+fn analyze_trial(
+    trial: &synth::SynthTrial,
+    name: &str,
+    config: &ValidateConfig,
+    rig: &RigProfile,
+    scratch: &mut Scratch,
+) -> TrialRecord {
+    let inputs = TrialInputs {
+        audio: synth::wav_bytes(trial),
+        frames: synth::frames_csv(trial, config.timestamp_digits).map(String::into_bytes),
+    };
+    let spec = TrialSpec {
+        name: name.to_string(),
+        group: None,
+        audio: Some(PathBuf::from(format!("{name}.wav"))),
+        frames: Some(PathBuf::from(format!("{name}.frames.csv"))),
+    };
+    pipeline::analyze(&spec, &inputs, rig, scratch)
+}
+
+/// The trial, when a scored flag or its click went wrong.
+fn disagreement(
+    score: &TrialScore,
+    trial: &synth::SynthTrial,
+    record: &TrialRecord,
+    family: Family,
+) -> Option<Disagreement> {
+    let pick = |want: bool| -> Vec<Flag> {
+        SCORED_FLAGS
+            .iter()
+            .zip(&score.flags)
+            .filter(|(_, (w, g))| w != g && *w == want)
+            .map(|(f, _)| *f)
+            .collect()
+    };
+    let (missed_flags, extra_flags) = (pick(true), pick(false));
+    if !score.click_missed && missed_flags.is_empty() && extra_flags.is_empty() {
+        return None;
+    }
+    Some(Disagreement {
+        trial: trial.name.clone(),
+        kind: trial.truth.kind,
+        family,
+        click_snr_db: trial.truth.click_snr_db,
+        missed_flags,
+        extra_flags,
+        true_clicks_s: trial.truth.clicks_s.clone().unwrap_or_default(),
+        found_clicks_s: record.clicks_s.clone().unwrap_or_default(),
+    })
 }
 
 /// Counts one flag decision into (true positives, false positives, false negatives, true
@@ -425,20 +480,56 @@ fn tally(c: &mut (usize, usize, usize, usize), want: bool, got: bool) {
     }
 }
 
-/// Scores one trial into `events`; true when its click was missed.
-fn score_trial(
+/// Scores one trial's flags and events against its truth.
+fn score_trial(record: &TrialRecord, trial: &synth::SynthTrial, period_s: f64) -> TrialScore {
+    let truth = &trial.truth;
+    let flags: Vec<(bool, bool)> = SCORED_FLAGS
+        .iter()
+        .map(|f| (truth.flags.contains(f), record.flags.contains(f)))
+        .collect();
+    // double_click again, leaving out second clicks below the SNR floor the targets assume
+    // (10 dB); false positives count as before.
+    let want = truth.flags.contains(&Flag::DoubleClick);
+    let audible = !want || truth.second_click_snr_db.is_some_and(|s| s >= AUDIBLE_DB);
+    let audible_double = audible.then(|| (want, record.flags.contains(&Flag::DoubleClick)));
+    let mut samples = Vec::new();
+    let click_missed = score_events(record, truth, period_s, &mut samples);
+    // The loading rows again, for trials whose drift is at least 6 noise SD.
+    if trial.drift_sigma.is_some_and(|d| d >= CLEAR_DRIFT_SIGMA) {
+        let clear: Vec<(usize, Sample)> = samples
+            .iter()
+            .filter(|(slot, _)| *slot == 4 || *slot == 5)
+            .map(|(slot, s)| (slot + 5, *s))
+            .collect();
+        samples.extend(clear);
+    }
+    TrialScore {
+        samples,
+        flags,
+        audible_double,
+        click_missed,
+        error: record.error.is_some(),
+    }
+}
+
+/// Scores one trial's events into `samples` (index into `EVENTS`, sample); true when its
+/// click was missed.
+fn score_events(
     record: &TrialRecord,
     truth: &synth::Truth,
     period_s: f64,
-    events: &mut [(&'static str, &'static str, Vec<Sample>)],
+    samples: &mut Vec<(usize, Sample)>,
 ) -> bool {
     let snr = truth.click_snr_db.unwrap_or(f64::INFINITY);
     let mut push = |slot: usize, value: Option<f64>, covered: Option<bool>| {
-        events[slot].2.push(Sample {
-            snr_db: snr,
-            value,
-            covered,
-        });
+        samples.push((
+            slot,
+            Sample {
+                snr_db: snr,
+                value,
+                covered,
+            },
+        ));
     };
     let abs_within = |r: Option<f64>, t: f64, scale: f64, limit: f64| {
         r.map(|r| (r - t).abs() * scale).filter(|e| *e <= limit)

@@ -81,6 +81,10 @@ struct ValidateArgs {
     /// Round timestamps to this many significant digits.
     #[arg(long)]
     timestamp_digits: Option<u32>,
+    /// Families to draw from, comma-separated (default: all, equally often; `--like` weights
+    /// them by what it measures).
+    #[arg(long, value_delimiter = ',', value_parser = parse_family)]
+    family: Vec<synth::Family>,
     /// Write the synthetic trials that disagree with their truth (audio, frames, truth) into
     /// this new or empty folder, to look at one by one.
     #[arg(long)]
@@ -88,6 +92,13 @@ struct ValidateArgs {
     /// Output format.
     #[arg(long, value_enum, default_value_t = Format::Text)]
     format: Format,
+}
+
+fn parse_family(s: &str) -> Result<synth::Family, String> {
+    synth::Family::parse(s.trim()).ok_or_else(|| {
+        let names: Vec<&str> = synth::Family::ALL.iter().map(|f| f.as_str()).collect();
+        format!("unknown family {s:?}; one of {}", names.join(", "))
+    })
 }
 
 fn parse_range(s: &str) -> Result<(f64, f64), String> {
@@ -476,18 +487,13 @@ fn run_validate(args: ValidateArgs) -> ExitCode {
         timestamp_digits: args.timestamp_digits,
         ..validate::ValidateConfig::default()
     };
+    if !args.family.is_empty() {
+        config.families = args.family.iter().map(|f| (*f, 1.0)).collect();
+    }
     if let Some(folder) = &args.like {
         match validate::measure_like(folder, &rig) {
             Ok(m) => {
-                eprintln!(
-                    "latchtime: measured {} trials in {}: {:?} Hz, {:?} fps, click SNR {:?} dB, video noise/jump {:?}",
-                    m.trials_read,
-                    folder.display(),
-                    m.sample_rate_hz,
-                    m.fps,
-                    m.snr_db,
-                    m.noise_per_jump
-                );
+                eprint!("{}", report::validate::render_measured(&m, folder));
                 config = config.shaped_like(&m);
             }
             Err(e) => return fail(EXIT_USAGE, e),

@@ -2,13 +2,26 @@
 
 use std::fmt::Write;
 
-use crate::validate::ValidationReport;
+use crate::validate::{EventAccuracy, FamilyAccuracy, MeasuredRig, ValidationReport};
 
 /// Disagreeing trials listed in the text table.
 const SHOWN: usize = 20;
 
 fn num(v: Option<f64>, decimals: usize) -> String {
     v.map_or_else(|| "-".to_string(), |v| format!("{v:.decimals$}"))
+}
+
+/// The unit, count, misses, error quantiles and coverage columns of an event row.
+fn stats(e: &EventAccuracy) -> String {
+    format!(
+        "{:<13} {:>5} {:>6} {:>10} {:>10} {:>9}",
+        e.unit,
+        e.n,
+        e.misses,
+        num(e.median_abs_error, 3),
+        num(e.p95_abs_error, 3),
+        num(e.coverage_95, 3)
+    )
 }
 
 /// Renders a validation report as aligned text tables.
@@ -20,6 +33,12 @@ pub fn render(r: &ValidationReport) -> String {
         "validation: {} synthetic trials at {} Hz / {} fps, click SNR {}-{} dB, video noise {:.2} (jump 40-70), seed {}; {} error records",
         r.trials, c.sample_rate_hz, c.fps, c.snr_db.0, c.snr_db.1, c.video_noise, c.seed, r.errors
     );
+    let weights: Vec<String> = c
+        .families
+        .iter()
+        .map(|(f, w)| format!("{} {w:.2}", f.as_str()))
+        .collect();
+    let _ = writeln!(s, "families drawn, by weight: {}", weights.join(", "));
     let _ = writeln!(s);
     let _ = writeln!(
         s,
@@ -27,18 +46,7 @@ pub fn render(r: &ValidationReport) -> String {
         "event", "SNR band", "unit", "n", "missed", "median", "p95", "cover95"
     );
     for e in &r.events {
-        let _ = writeln!(
-            s,
-            "{:<34} {:<10} {:<13} {:>5} {:>6} {:>10} {:>10} {:>9}",
-            e.event,
-            e.band,
-            e.unit,
-            e.n,
-            e.misses,
-            num(e.median_abs_error, 3),
-            num(e.p95_abs_error, 3),
-            num(e.coverage_95, 3)
-        );
+        let _ = writeln!(s, "{:<34} {:<10} {}", e.event, e.band, stats(e));
     }
     let _ = writeln!(s);
     let _ = writeln!(
@@ -59,6 +67,21 @@ pub fn render(r: &ValidationReport) -> String {
             num(f.false_alarm_rate, 3)
         );
     }
+    let (held, tuned): (Vec<&FamilyAccuracy>, Vec<&FamilyAccuracy>) =
+        r.families.iter().partition(|f| f.held_out);
+    if !tuned.is_empty() {
+        let _ = writeln!(s);
+        let _ = writeln!(s, "per family (all SNR bands pooled):");
+        s.push_str(&families_table(&tuned));
+    }
+    if !held.is_empty() {
+        let _ = writeln!(s);
+        let _ = writeln!(
+            s,
+            "held out (no setting was tuned on these; all SNR bands pooled):"
+        );
+        s.push_str(&families_table(&held));
+    }
     if !r.disagreements.is_empty() {
         let _ = writeln!(s);
         let _ = writeln!(
@@ -78,8 +101,9 @@ pub fn render(r: &ValidationReport) -> String {
                 |v: &[crate::Flag]| v.iter().map(|f| f.as_str()).collect::<Vec<_>>().join(",");
             let _ = writeln!(
                 s,
-                "  {} {:<13} snr {:>5} dB  missed [{}] extra [{}]  clicks true [{}] found [{}]",
+                "  {} {:<16} {:<13} snr {:>5} dB  missed [{}] extra [{}]  clicks true [{}] found [{}]",
                 d.trial,
+                d.family.as_str(),
                 d.kind.as_str(),
                 num(d.click_snr_db, 1),
                 flags(&d.missed_flags),
@@ -89,5 +113,84 @@ pub fn render(r: &ValidationReport) -> String {
             );
         }
     }
+    s
+}
+
+/// One block per family: its events, then the flags its trials raise or should raise.
+fn families_table(families: &[&FamilyAccuracy]) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "{:<22} {:<34} {:<13} {:>5} {:>6} {:>10} {:>10} {:>9}",
+        "family", "event", "unit", "n", "missed", "median", "p95", "cover95"
+    );
+    for f in families {
+        let name = format!("{} ({})", f.family.as_str(), f.trials);
+        for e in f.events.iter().filter(|e| e.n > 0) {
+            let _ = writeln!(s, "{name:<22} {:<34} {}", e.event, stats(e));
+        }
+        let scored = f
+            .flags
+            .iter()
+            .filter(|g| g.true_positives + g.false_positives + g.false_negatives > 0);
+        for g in scored {
+            let _ = writeln!(
+                s,
+                "{:<22} {:<34} {:<13} {:>5} {:>6} {:>10} {:>10}",
+                name,
+                g.flag,
+                "TP/FP/FN",
+                format!(
+                    "{}/{}/{}",
+                    g.true_positives, g.false_positives, g.false_negatives
+                ),
+                "",
+                format!("P {}", num(g.precision, 3)),
+                format!("R {}", num(g.recall, 3)),
+            );
+        }
+        if f.errors > 0 {
+            let _ = writeln!(s, "{name:<22} {} error records", f.errors);
+        }
+    }
+    s
+}
+
+/// What `validate --like` measured from a lab's trials, one line per measure.
+pub fn render_measured(m: &MeasuredRig, folder: &std::path::Path) -> String {
+    let pair = |v: Option<(f64, f64)>| v.map_or("-".to_string(), |(a, b)| format!("{a:.1}-{b:.1}"));
+    let share = |v: Option<f64>| v.map_or("-".to_string(), |v| format!("{:.0} %", 100.0 * v));
+    let sh = &m.shares;
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "latchtime: measured {} trials in {}:",
+        m.trials_read,
+        folder.display()
+    );
+    let _ = writeln!(
+        s,
+        "  sample rate {} Hz, frame rate {} fps, click SNR {} dB, video noise/jump {}",
+        m.sample_rate_hz.map_or("-".to_string(), |r| r.to_string()),
+        num(m.fps, 2),
+        pair(m.snr_db),
+        num(m.noise_per_jump, 4)
+    );
+    let _ = writeln!(
+        s,
+        "  ringing/release speed {} (ringing steeper on {}), loading drift/noise {} (under 6 on {})",
+        num(m.ring_per_release_speed, 2),
+        share(sh.fast_ringing),
+        num(m.drift_per_noise, 1),
+        share(sh.weak_drift)
+    );
+    let _ = writeln!(
+        s,
+        "  click decay to -20 dB {} ms (over 2 ms on {}), timestamp step {} frame periods (half a period or more on {})",
+        num(m.click_decay_ms, 2),
+        share(sh.ringing_click),
+        num(m.timestamp_step_frames, 3),
+        share(sh.rounded_stamps)
+    );
     s
 }
