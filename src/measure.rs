@@ -189,7 +189,9 @@ pub struct TrialRecord {
     pub loading_onset_uncertainty_ms: Option<f64>,
     pub loading_onset_early_s: Option<f64>,
     pub loading_onset_late_s: Option<f64>,
-    /// The frames begin while loading is already under way (null without frames).
+    /// The loading may have begun before the first frame: the onset's 95 % interval reaches
+    /// before it. The onset itself is null when it fits best before the first frame (null
+    /// without frames).
     #[serde(default)]
     pub loading_before_record: Option<bool>,
     pub latch_release_s: Option<f64>,
@@ -379,7 +381,7 @@ pub fn measure(
         // A loading under way when the record began has no onset on this record.
         let onset = video.loading.as_ref().filter(|l| !l.before_record);
         record.loading_before_record =
-            Some(video.loading.as_ref().is_some_and(|l| l.before_record));
+            Some(video.loading.as_ref().is_some_and(|l| l.may_precede_record));
         record.loading_onset_s = onset.map(|l| l.onset_s);
         record.loading_onset_uncertainty_ms = onset.map(|l| l.uncertainty_ms);
         record.loading_onset_early_s = onset.map(|l| l.early_s);
@@ -546,6 +548,7 @@ mod tests {
                 drift_per_s: -1.0,
                 f_statistic: 100.0,
                 before_record: false,
+                may_precede_record: false,
             }),
             oscillation: Some(from_ratio(50.0, 0.63, 5)),
             click_fits_frames: None,

@@ -147,6 +147,8 @@ const BANDS: [(&str, f64, f64); 5] = [
 const AUDIBLE_DB: f64 = 10.0;
 /// Name of the double_click row that leaves out second clicks below `AUDIBLE_DB`.
 pub const DOUBLE_AUDIBLE_ROW: &str = "double_click, second >= 10 dB";
+/// The row that scores `loading_before_record` like a flag, on trials with frames that load.
+pub const BEFORE_RECORD_ROW: &str = "loading_before_record";
 
 /// Flags whose detection is scored.
 const SCORED_FLAGS: [Flag; 7] = [
@@ -196,6 +198,8 @@ struct TrialScore {
     flags: Vec<(bool, bool)>,
     /// double_click without second clicks under `AUDIBLE_DB`, when the trial counts there.
     audible_double: Option<(bool, bool)>,
+    /// (the record starts mid-loading, the record says so), for trials with frames that load.
+    before_record: Option<(bool, bool)>,
     click_missed: bool,
     error: bool,
 }
@@ -207,6 +211,7 @@ struct Tally {
     events: Vec<Vec<Sample>>,
     flags: Vec<Counts>,
     audible_double: Counts,
+    before_record: Counts,
 }
 
 impl Tally {
@@ -217,6 +222,7 @@ impl Tally {
             events: vec![Vec::new(); EVENTS.len()],
             flags: vec![(0, 0, 0, 0); SCORED_FLAGS.len()],
             audible_double: (0, 0, 0, 0),
+            before_record: (0, 0, 0, 0),
         }
     }
 
@@ -231,6 +237,9 @@ impl Tally {
         }
         if let Some((want, got)) = score.audible_double {
             tally(&mut self.audible_double, want, got);
+        }
+        if let Some((want, got)) = score.before_record {
+            tally(&mut self.before_record, want, got);
         }
     }
 
@@ -259,6 +268,7 @@ impl Tally {
             .zip(self.flags.iter().copied())
             .collect();
         named.insert(1, (DOUBLE_AUDIBLE_ROW.to_string(), self.audible_double));
+        named.push((BEFORE_RECORD_ROW.to_string(), self.before_record));
         named
             .into_iter()
             .map(|(flag, (tp, fp, fn_, tn))| FlagAccuracy {
@@ -503,10 +513,15 @@ fn score_trial(record: &TrialRecord, trial: &synth::SynthTrial, period_s: f64) -
             .collect();
         samples.extend(clear);
     }
+    let before_record = truth.loading_before_record.map(|want| {
+        let got = record.loading_before_record == Some(true);
+        (want, got)
+    });
     TrialScore {
         samples,
         flags,
         audible_double,
+        before_record,
         click_missed,
         error: record.error.is_some(),
     }
@@ -573,7 +588,9 @@ fn score_events(
             within(record.motion_peak_s, ms(record.motion_peak_sd_ms), t),
         );
     }
-    if let (Some(t), Some(load_ms)) = (truth.loading_onset_s, truth.loading_ms) {
+    // A record that starts mid-loading shows no onset; the before-record row scores it.
+    let shows_onset = truth.loading_before_record != Some(true);
+    if let (Some(t), Some(load_ms), true) = (truth.loading_onset_s, truth.loading_ms, shows_onset) {
         let err_ms = record.loading_onset_s.map(|r| (r - t).abs() * 1e3);
         let covered = match (record.loading_onset_early_s, record.loading_onset_late_s) {
             (Some(a), Some(b)) => Some(a <= t && t <= b),
@@ -583,7 +600,7 @@ fn score_events(
     }
     let relative =
         |r: Option<f64>, t: f64| r.filter(|_| t != 0.0).map(|r| 100.0 * ((r - t) / t).abs());
-    if let Some(t) = truth.loading_ms {
+    if let (Some(t), true) = (truth.loading_ms, shows_onset) {
         push(
             5,
             relative(record.loading_ms, t),
@@ -597,7 +614,7 @@ fn score_events(
             within(record.release_ms, record.release_ms_sd, t),
         );
     }
-    if let Some(t) = truth.amplification {
+    if let (Some(t), true) = (truth.amplification, shows_onset) {
         push(
             7,
             relative(record.amplification, t),

@@ -38,6 +38,9 @@ pub struct LoadingOnset {
     /// The drift fits best with an onset before the first frame: the record began while
     /// loading was under way and does not show the held level, so the onset is not known.
     pub before_record: bool,
+    /// The 95 % interval reaches before the first frame: the loading may have begun before
+    /// the record (true whenever `before_record` is).
+    pub may_precede_record: bool,
 }
 
 /// Finds the loading onset in the frames `..end` of (t, y).
@@ -65,6 +68,7 @@ pub fn detect_loading(t: &[f64], y: &[f64], end: usize, period_s: f64) -> Option
     let late = late.max(onset + 0.5 * period_s);
     Some(LoadingOnset {
         before_record: onset < 0.0,
+        may_precede_record: early < 0.0,
         onset_s: onset + t0,
         uncertainty_ms: (onset - early).max(late - onset) * 1e3,
         early_s: early + t0,
