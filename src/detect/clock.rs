@@ -36,22 +36,30 @@ pub struct FrameClock {
 
 /// Timing jitter, in frame periods, still taken as part of a uniform clock (beyond rounding).
 const JITTER_PERIODS: f64 = 0.3;
+/// Jitter allowance, in frame periods, of the test that rounding alone explains every stamp.
+/// Under a quarter period: one missing frame in the middle of a record leaves the best line
+/// through the row numbers a quarter period from the stamps on either side.
+const ROUNDING_ONLY_JITTER_PERIODS: f64 = 0.1;
 
 /// Builds the frame clock of `series`.
 pub fn frame_clock(series: &FrameSeries) -> FrameClock {
     let t = &series.time_s;
     let n = t.len();
-    let steps: Vec<f64> = if series.timestamps_given {
-        t.iter().map(|&v| print_step(v)).collect()
-    } else {
-        vec![0.0; n]
+    // The step of the last digit as printed ("0.0040000" is 1e-7); from the value only for
+    // series that were not read from text.
+    let steps: Vec<f64> = match (&series.time_step_s, series.timestamps_given) {
+        (Some(printed), true) if printed.len() == n => printed.clone(),
+        (_, true) => t.iter().map(|&v| print_step(v)).collect(),
+        (_, false) => vec![0.0; n],
     };
     let index: Vec<f64> = match &series.frame_index {
         Some(k) => {
             let origin = k.first().copied().unwrap_or(0);
             k.iter().map(|&k| (k - origin) as f64).collect()
         }
-        None if series.timestamps_given => index_from_stamps(t, &steps),
+        None if series.timestamps_given && !rounding_explains_rows(t, &steps) => {
+            index_from_stamps(t, &steps)
+        }
         None => (0..n).map(|k| k as f64).collect(),
     };
     let span = t[n - 1] - t[0];
@@ -87,6 +95,43 @@ pub fn frame_clock(series: &FrameSeries) -> FrameClock {
         max_residual_s,
         timestamp_step_s,
     }
+}
+
+/// True when one uniform clock over the row numbers passes within half its printing step
+/// (plus the jitter allowance) of every stamp: then rounding explains every step and no frame
+/// is missing. Feasibility of the clock t = o + p k is convex in p: for a slope p the clock's
+/// origin must lie above every row's lower bound and below every upper one, and the largest
+/// lower bound minus the least upper bound is a convex function of p, minimised here by a
+/// ternary search. With stamps a whole printing step coarser than a frame, a frame period
+/// almost commensurate with the step makes the stamps' mean offset beat by a period every few
+/// thousand rows, which a windowed mean would read as a missing frame; this test does not.
+fn rounding_explains_rows(t: &[f64], steps: &[f64]) -> bool {
+    let n = t.len();
+    let rows: Vec<f64> = (0..n).map(|k| k as f64).collect();
+    let Some((period, _)) = super::line_fit(&rows, t).filter(|(p, _)| *p > 0.0) else {
+        return false;
+    };
+    let excess = |p: f64| -> f64 {
+        let jitter = ROUNDING_ONLY_JITTER_PERIODS * p;
+        let (mut lower, mut upper) = (f64::NEG_INFINITY, f64::INFINITY);
+        for (k, (&v, &q)) in t.iter().zip(steps).enumerate() {
+            let at = v - p * k as f64;
+            lower = lower.max(at - 0.5 * q - jitter);
+            upper = upper.min(at + 0.5 * q + jitter);
+        }
+        lower - upper
+    };
+    let (mut lo, mut hi) = (0.99 * period, 1.01 * period);
+    for _ in 0..200 {
+        let a = lo + (hi - lo) / 3.0;
+        let b = hi - (hi - lo) / 3.0;
+        if excess(a) <= excess(b) {
+            hi = b;
+        } else {
+            lo = a;
+        }
+    }
+    excess(0.5 * (lo + hi)) <= 0.0
 }
 
 /// Frame index of each row from timestamps alone: the row number, plus the frames found missing
@@ -211,6 +256,28 @@ mod tests {
             let rel = (1.0 / clock.period_s - fps).abs() / fps;
             assert!(rel < 5e-5, "{fps} fps: rate off by {rel}");
         }
+    }
+
+    #[test]
+    fn a_period_almost_commensurate_with_coarse_stamps_invents_no_gap() {
+        // 17,999.65 fps stamped to 4 significant digits for 3.4 s: after the first second each
+        // printed value covers 17 or 18 frames, and the run means of the stamps' offsets beat
+        // by a whole period every few thousand rows, which read as a missing frame before.
+        let k: Vec<i64> = (0..61_735).collect();
+        let clock = frame_clock(&series(stamps(&k, 17_999.65, 0.0, 4), None));
+        assert_eq!(clock.missing_frames, 0);
+        assert!((1.0 / clock.period_s / 17_999.65 - 1.0).abs() < 5e-4);
+    }
+
+    #[test]
+    fn printed_steps_of_the_time_cells_set_what_rounding_explains() {
+        // "0.0040000" is exact to 1e-7 although its value prints as 0.004: one frame missing
+        // at 500 fps is found from the cells' own steps.
+        let k: Vec<i64> = (0..237).filter(|&k| k != 121).collect();
+        let t: Vec<f64> = k.iter().map(|&k| k as f64 * 2e-3).collect();
+        let mut s = series(t, None);
+        s.time_step_s = Some(vec![1e-7; k.len()]);
+        assert_eq!(frame_clock(&s).missing_frames, 1);
     }
 
     #[test]

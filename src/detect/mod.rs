@@ -624,7 +624,10 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
     let clock = clock::frame_clock(series);
     let t = &clock.time_s;
     let y = &series.motion;
-    let noise_sigma = trace::noise_sigma(y, trace::column_print_step(y));
+    let printed = series
+        .motion_step
+        .unwrap_or_else(|| trace::column_print_step(y));
+    let noise_sigma = trace::noise_sigma(y, printed);
     let motion = release::detect_release(t, y, clock.period_s, noise_sigma, &rig.into());
     let loading_end = match &motion {
         Some(m) => m.pre_release_index + 1,
