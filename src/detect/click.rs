@@ -9,15 +9,27 @@
 //!    signal crosses a trigger level (chi-square quantiles by Wilson-Hilferty) set by the
 //!    chance of a false click per search and the length searched ([`trigger_sigma`]); an
 //!    energy detector sees clicks whose peak is only a few times the noise, which a sample
-//!    threshold misses. Crossings closer than `click_merge_ms` form one transient.
-//! 3. Onset: the AIC picker of Maeda (1985), AIC(k) = k ln var(x[..k]) + (N-k-1) ln var(x[k..]),
+//!    threshold misses. Crossings closer than `click_merge_ms` form one run.
+//! 3. Transients: a run is split where the energy stands a margin above the decaying tail of
+//!    the transient before it ([`tail`]: a transient is a rise and a decaying tail, the tail
+//!    held over a few windows and decayed at half its recent rate), so a click that rings for
+//!    milliseconds stays one transient and a second click inside its ringing, louder or not,
+//!    is one of its own. One pass gives the whole list: the whole recording, the stretches
+//!    the video points to, and the fallback at the core chance.
+//! 4. Onset: the AIC picker of Maeda (1985), AIC(k) = k ln var(x[..k]) + (N-k-1) ln var(x[k..]),
 //!    minimised on a short window ending just after the first crossing. It needs no threshold
 //!    of its own and is exact to the sample on a clean step in variance. It runs on the same
 //!    high-pass applied causally (forward only) from 10 ms before the window: a zero-phase
 //!    filter smears a loud click's onset backwards by a fraction of a millisecond (pre-ringing),
 //!    a causal one cannot move a broadband onset earlier.
-//! 4. Click or thump: the spectral centroid of the raw transient (detrended, Hann window) must
+//!    Inside another's tail the window starts one energy window before the crossing.
+//!    Each transient also carries its peak level, its own peak and SNR (less the tail's
+//!    share), how far it stood above that tail and its decay time.
+//! 5. Click or thump: the spectral centroid of the raw transient (detrended, Hann window) must
 //!    reach `min_click_centroid_hz`; handling thumps are low-frequency.
+//! 6. Names: one rule ([`rule`]) names the main (release) click, later clicks, faint clicks,
+//!    ticks and thumps: the main click is the earliest click of the group that holds the
+//!    click nearest the video's time (or the strongest), not the loudest.
 
 use std::sync::Arc;
 
