@@ -5,6 +5,7 @@
 
 use serde::{Deserialize, Serialize};
 
+use crate::detect::click::Role;
 use crate::detect::{AudioEvents, VideoEvents};
 use crate::rig::{EfficiencyModel, RigProfile};
 pub use crate::signal::{FramesInput, Recording};
@@ -27,7 +28,8 @@ pub enum Status {
 pub enum Flag {
     /// Audio present but no click found.
     NoClick,
-    /// A second click at or above `double_click_db` re the strongest.
+    /// A later click stands above the main click's tail with its own SNR of 10 dB or more,
+    /// at or above `double_click_db` re the strongest click of the group.
     DoubleClick,
     /// Frames present but no loading onset found.
     NoLoading,
@@ -185,6 +187,8 @@ pub struct TrialRecord {
     pub click_onset_s: Option<f64>,
     pub clicks_s: Option<Vec<f64>>,
     pub thumps_s: Option<Vec<f64>>,
+    /// Faint clicks before the main click's group, or in a trial without a click.
+    pub ticks_s: Option<Vec<f64>>,
     pub loading_onset_s: Option<f64>,
     pub loading_onset_uncertainty_ms: Option<f64>,
     pub loading_onset_early_s: Option<f64>,
@@ -249,6 +253,7 @@ impl TrialRecord {
             click_onset_s: None,
             clicks_s: None,
             thumps_s: None,
+            ticks_s: None,
             loading_onset_s: None,
             loading_onset_uncertainty_ms: None,
             loading_onset_early_s: None,
@@ -334,20 +339,14 @@ pub fn measure(
     if let Some((events, sample_rate_hz)) = audio {
         record.audio_sample_rate_hz = Some(sample_rate_hz);
         record.clicks_s = Some(events.clicks().map(|c| c.onset_s).collect());
-        record.thumps_s = Some(
-            events
-                .transients
-                .iter()
-                .filter(|t| !t.is_click)
-                .map(|t| t.onset_s)
-                .collect(),
-        );
+        let onsets = |role| Some(events.with_role(role).map(|t| t.onset_s).collect());
+        record.thumps_s = onsets(Role::Thump);
+        record.ticks_s = onsets(Role::Tick);
         match events.main() {
             None => flags.push(Flag::NoClick),
             Some(main) => {
                 record.click_onset_s = Some(main.onset_s);
-                let floor = main.peak_filtered * 10f64.powf(rig.double_click_db / 20.0);
-                if events.clicks().filter(|c| c.peak_filtered >= floor).count() > 1 {
+                if events.with_role(Role::Later).next().is_some() {
                     flags.push(Flag::DoubleClick);
                 }
                 if main.clipped {

@@ -254,7 +254,9 @@ fn analyse_audio(
 ) -> Result<AudioAnalysis> {
     let auto = rig.audio_channel_auto;
     let first = decoded.signal.channel;
-    let events = detect::detect_audio(&decoded.signal, rig, &mut scratch.click, expected);
+    let lossy = decoded.info.lossy;
+    let events =
+        detect::detect_coded_audio(&decoded.signal, rig, lossy, &mut scratch.click, expected);
     let channels = decoded.signal.channels;
     let mut analysis = AudioAnalysis {
         decoded,
@@ -273,7 +275,8 @@ fn analyse_audio(
     let mut best_other: Option<(f64, usize, DecodedAudio, AudioEvents)> = None;
     for channel in (0..channels).filter(|&c| c != first) {
         let d = decode::decode_audio_with_info(path, bytes, channel)?;
-        let e = detect::detect_audio(&d.signal, rig, &mut scratch.click, expected);
+        let lossy = d.info.lossy;
+        let e = detect::detect_coded_audio(&d.signal, rig, lossy, &mut scratch.click, expected);
         if let Some(s) = snr(&e) {
             if best_other.as_ref().is_none_or(|b| s > b.0) {
                 best_other = Some((s, channel, d, e));

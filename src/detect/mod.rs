@@ -306,9 +306,10 @@ mod tests {
     #[test]
     fn a_slipped_click_heard_nowhere_is_sought_again_near_the_release_at_the_core_chance() {
         // The video puts the click at 0.25 s; it sounds 20 ms later, peak about 2.4 times the
-        // noise RMS. For these noise seeds the first pass (the second-click stretch at
-        // `click_false_alarm`) misses it; searched again at the core chance it is found. With
-        // the core chance set to `click_false_alarm` the second search adds nothing. Over
+        // noise RMS. For these noise seeds the search of the group window around the expected
+        // stretch at `click_false_alarm` misses it; the fallback search of that stretch at
+        // the core chance finds it. With the core chance set to `click_false_alarm` the
+        // fallback adds nothing. Over
         // seeds 1-12 at this level, 2 were found by the second search only, 3 by both, 2
         // took a false click instead and 5 were not found.
         let hint = |start_s: f64, end_s: f64, false_alarm: f64| click::SearchHint {
@@ -318,12 +319,14 @@ mod tests {
         };
         let rig = RigProfile::default();
         let expected = ExpectedClick {
+            at_s: 0.25,
             stretch: hint(0.2453, 0.2548, rig.click_false_alarm),
             core: hint(0.2493, 0.2508, rig.click_core_false_alarm),
         };
-        let strict = RigProfile {
-            click_core_false_alarm: rig.click_false_alarm,
-            ..RigProfile::default()
+        // The fallback search takes its chance from the expected click's core.
+        let strict = ExpectedClick {
+            core: hint(0.2493, 0.2508, rig.click_false_alarm),
+            ..expected
         };
         let mut scratch = click::ClickScratch::default();
         for seed in [2, 3] {
@@ -335,7 +338,7 @@ mod tests {
                 "seed {seed}: {main:?}"
             );
             assert!(main.guided, "seed {seed}: {main:?}");
-            let missed = detect_audio(&signal, &strict, &mut scratch, Some(expected));
+            let missed = detect_audio(&signal, &rig, &mut scratch, Some(strict));
             assert!(missed.main().is_none(), "seed {seed}: {:?}", missed.main());
             // Without a video release nothing says the trial fired: no second search.
             let blind = detect_audio(&signal, &rig, &mut scratch, None);
@@ -377,25 +380,34 @@ use serde::{Deserialize, Serialize};
 
 use crate::rig::RigProfile;
 use crate::signal::{AudioSignal, FrameSeries};
+pub use click::ExpectedClick;
 
 /// Everything found in one audio channel.
 #[derive(Debug, Clone, PartialEq)]
 pub struct AudioEvents {
     /// Every transient, clicks and thumps, ascending in time.
     pub transients: Vec<click::Transient>,
-    /// Index into `transients` of the strongest click.
+    /// Index into `transients` of the main click ([`click::rule`]).
     pub main_click: Option<usize>,
     /// Robust noise standard deviation of the high-passed audio (1.0 = full scale).
     pub noise_sigma: f64,
 }
 
 impl AudioEvents {
-    /// The clicks only, ascending in time.
+    /// The main click and every click after it, ascending in time.
     pub fn clicks(&self) -> impl Iterator<Item = &click::Transient> {
-        self.transients.iter().filter(|t| t.is_click)
+        use click::Role;
+        self.transients
+            .iter()
+            .filter(|t| matches!(t.role, Role::Main | Role::Later | Role::Faint))
     }
 
-    /// The strongest click.
+    /// Transients of the given role, ascending in time.
+    pub fn with_role(&self, role: click::Role) -> impl Iterator<Item = &click::Transient> {
+        self.transients.iter().filter(move |t| t.role == role)
+    }
+
+    /// The main click.
     pub fn main(&self) -> Option<&click::Transient> {
         self.main_click.map(|i| &self.transients[i])
     }
@@ -425,6 +437,9 @@ impl From<&RigProfile> for click::ClickConfig {
             merge_ms: rig.click_merge_ms,
             min_centroid_hz: rig.min_click_centroid_hz,
             detection_top_hz: rig.click_detection_top_hz,
+            group_window_ms: rig.double_click_window_ms,
+            group_level_db: rig.double_click_db,
+            ..click::ClickConfig::default()
         }
     }
 }
@@ -439,166 +454,37 @@ impl From<&RigProfile> for release::ReleaseConfig {
     }
 }
 
-/// Finds the transients of one audio channel and picks the strongest click.
+/// Finds and names the transients of one audio channel ([`click::detect_clicks`]).
 ///
 /// `expected` is where the click should be heard, from the video ([`expected_click`]); that
-/// stretch is searched at the lower level its length earns, and searched again at a higher
-/// chance when no click is heard anywhere. So is the stretch within `double_click_window_ms`
-/// of the strongest click, for a weaker second click.
+/// stretch and the group window around it are searched at the levels their lengths earn.
 pub fn detect_audio(
     signal: &AudioSignal,
     rig: &RigProfile,
     scratch: &mut click::ClickScratch,
     expected: Option<ExpectedClick>,
 ) -> AudioEvents {
-    let config = click::ClickConfig::from(rig);
-    let around_s = rig.double_click_window_ms * 1e-3;
-    let mut hints: Vec<click::SearchHint> = expected.iter().flat_map(|e| e.hints()).collect();
-    if let (Some(e), true) = (expected, around_s > 0.0) {
-        // Where the click should be, and the second-click stretch around it, in one pass. That
-        // stretch is also where a click of a trial whose clocks slipped lies, so it is searched
-        // at the main-click chance; a second click found in it must still clear the stricter
-        // second-click level (`keep_clear_second_clicks`, below).
-        hints.push(e.widened(around_s, rig.click_false_alarm));
-    }
-    let mut scan = click::scan_transients(signal, &config, scratch, &hints);
-    if let Some(e) = expected.filter(|_| strongest_click(&scan.transients).is_none()) {
-        // The video shows a release, so the trial fired and its click is close by. Heard
-        // nowhere at the levels above, the expected stretch and the second-click stretch
-        // around it are searched again at the core chance: a false click found there costs
-        // a `low_snr` (and, out of place, a `sync_mismatch`) on a trial looked at anyway, a
-        // missed one a false `no_click`.
-        let region = e.widened(around_s, rig.click_core_false_alarm);
-        scan.rescan(
-            signal,
-            &config,
-            scratch,
-            &[e.stretch, e.core, region],
-            region,
-        );
-    }
-    if let Some(main) = strongest_click(&scan.transients).map(|i| scan.transients[i].clone()) {
-        let in_expected = expected
-            .is_some_and(|e| main.onset_s >= e.stretch.start_s && main.onset_s <= e.stretch.end_s);
-        if around_s > 0.0 && !in_expected {
-            // The click is not where the video said: search around it for a second one.
-            let region = click::SearchHint {
-                start_s: main.onset_s - around_s,
-                end_s: main.onset_s + around_s,
-                false_alarm: rig.click_false_alarm * OUT_OF_PLACE_SECOND_CLICK_SHARE,
-            };
-            let mut second = vec![region];
-            if main.guided {
-                second.extend(expected.iter().flat_map(|e| e.hints()));
-            }
-            scan.rescan(signal, &config, scratch, &second, region);
-            // The second search measures its own noise on its own stretch; a main click just
-            // over the level the first time may fall just under it now. It was found: keep it.
-            // One found only at a lowered level stays marked so, whatever the second search
-            // made of it.
-            let merge_s = rig.click_merge_ms * 1e-3;
-            let mut again = false;
-            for t in scan
-                .transients
-                .iter_mut()
-                .filter(|t| (t.onset_s - main.onset_s).abs() <= merge_s)
-            {
-                t.guided |= main.guided;
-                again = true;
-            }
-            if !again {
-                let at = scan
-                    .transients
-                    .partition_point(|t| t.onset_s < main.onset_s);
-                scan.transients.insert(at, main.clone());
-            }
-        }
-        if let Some(main) = strongest_click(&scan.transients).map(|i| scan.transients[i].onset_s) {
-            let chances = click::SecondClickChances {
-                after: rig.click_false_alarm * SECOND_CLICK_FALSE_ALARM_SHARE,
-                before: rig.click_false_alarm * PRECURSOR_CLICK_FALSE_ALARM_SHARE,
-                far: rig.click_false_alarm * FAR_CLICK_FALSE_ALARM_SHARE,
-            };
-            scan.keep_clear_second_clicks(signal, &config, main, around_s, chances);
-        }
-    }
-    let main_click = strongest_click(&scan.transients);
+    detect_coded_audio(signal, rig, false, scratch, expected)
+}
+
+/// [`detect_audio`] on audio that may have gone through a transform codec (`lossy`), whose
+/// pre-echo must not be taken for a click before the release ([`click::ClickConfig`]).
+pub fn detect_coded_audio(
+    signal: &AudioSignal,
+    rig: &RigProfile,
+    lossy: bool,
+    scratch: &mut click::ClickScratch,
+    expected: Option<ExpectedClick>,
+) -> AudioEvents {
+    let config = click::ClickConfig {
+        lossy_codec: lossy,
+        ..click::ClickConfig::from(rig)
+    };
+    let report = click::detect_clicks(signal, &config, scratch, expected.as_ref());
     AudioEvents {
-        transients: scan.transients,
-        main_click,
-        noise_sigma: scan.noise_sigma,
-    }
-}
-
-/// The search for a second click in the `double_click_window_ms` after the strongest takes two
-/// fifths of the false-alarm chance of the other searches: a false second click raises
-/// `double_click` on a good trial, while a false click in the expected stretch of a trial
-/// whose click is missed only replaces a `no_click` flag with `low_snr`. On 6000 `validate`
-/// trials at 48 kHz (seed 11), with one search of the 60 ms either side of the strongest
-/// click, two fifths against one fifth took recall of second clicks of 10 dB or more from
-/// 0.960 to 0.968 and precision from 0.976 to 0.972, far clicks held to
-/// [`FAR_CLICK_FALSE_ALARM_SHARE`] in both.
-const SECOND_CLICK_FALSE_ALARM_SHARE: f64 = 0.4;
-
-/// The same stretch before the strongest click is its own search, at a tenth of the chance: a
-/// click that precedes a stronger one (a precursor slip of the latch) is taken to be rarer
-/// than one that follows it (a rebound on the stop, a second release). That is our
-/// assumption, not a measurement on real recordings; `validate` makes second clicks after the
-/// first only, so it cannot test it. Halving each search's length lowers the level after the
-/// strongest click (4.41 to 4.26 standard scores at 48 kHz) and raises it before (to 4.56;
-/// the whole-recording level a click further away must clear is 5.21). On 6000 `validate`
-/// trials at 48 kHz this took recall of second clicks of 10 dB or more from 0.968 to 0.972
-/// (seed 11) and from 0.954 to 0.967 (seed 12), precision from 0.972 to 0.972 and from 0.981
-/// to 0.974.
-const PRECURSOR_CLICK_FALSE_ALARM_SHARE: f64 = 0.1;
-
-/// Around a strongest click heard where the video did not put it (out of sync, or no video),
-/// the second-click stretch is searched again at a fifth of the chance: that click may itself
-/// be noise in a trial whose click was missed, and at two fifths there, 6000 `validate` trials
-/// at 48 kHz took three more false `double_click` flags (14 -> 17) and no more second clicks.
-const OUT_OF_PLACE_SECOND_CLICK_SHARE: f64 = 0.2;
-
-/// A click further than `double_click_window_ms` from the strongest must clear the level of a
-/// search of the whole recording at a twentieth of the chance: a second firing that long after
-/// the first is rare, a noise crossing somewhere in half a second is not. On the same trials,
-/// a twentieth against a fifth took false `double_click` flags from 15 to 12.
-const FAR_CLICK_FALSE_ALARM_SHARE: f64 = 0.05;
-
-fn strongest_click(transients: &[click::Transient]) -> Option<usize> {
-    transients
-        .iter()
-        .enumerate()
-        .filter(|(_, t)| t.is_click)
-        .max_by(|a, b| a.1.peak_filtered.total_cmp(&b.1.peak_filtered))
-        .map(|(i, _)| i)
-}
-
-/// Where on the audio clock the click of the video's latch release should be heard.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct ExpectedClick {
-    /// The clock relation applied to the video release, widened by the sync tolerance, three
-    /// standard uncertainties of the video release and the energy window; searched at
-    /// `click_false_alarm`.
-    pub stretch: click::SearchHint,
-    /// The part of `stretch` where the clocks agree as well as they can be measured: three
-    /// standard uncertainties of the video release and `sync_tolerance_min_ms` either side,
-    /// plus the energy window; searched at `click_core_false_alarm`.
-    pub core: click::SearchHint,
-}
-
-impl ExpectedClick {
-    /// Both stretches, as searches.
-    pub fn hints(&self) -> [click::SearchHint; 2] {
-        [self.stretch, self.core]
-    }
-
-    /// The stretch widened by `around_s` either side, searched at `false_alarm`.
-    pub fn widened(&self, around_s: f64, false_alarm: f64) -> click::SearchHint {
-        click::SearchHint {
-            start_s: self.stretch.start_s - around_s,
-            end_s: self.stretch.end_s + around_s,
-            false_alarm,
-        }
+        transients: report.transients,
+        main_click: report.main,
+        noise_sigma: report.noise_sigma,
     }
 }
 
@@ -616,7 +502,11 @@ pub fn expected_click(video: &VideoEvents, rig: &RigProfile) -> Option<ExpectedC
     };
     let stretch = hint(tolerance_s + 3.0 * m.release_sd_s, rig.click_false_alarm);
     let core = hint(min_s + 3.0 * m.release_sd_s, rig.click_core_false_alarm);
-    Some(ExpectedClick { stretch, core })
+    Some(ExpectedClick {
+        at_s,
+        stretch,
+        core,
+    })
 }
 
 /// Runs the video detectors.
