@@ -1,8 +1,14 @@
 //! Decay of the post-release oscillation: a damped sinusoid fitted by Levenberg-Marquardt,
 //! started from the logarithmic decrement of the extrema.
 //!
-//! Starting at the motion peak, successive extrema are found with a hysteresis of eight noise
-//! standard deviations (each refined by a parabola through three frames). The peak-to-peak
+//! Starting at the motion peak, the trace is cut into half-cycles where it crosses a band of
+//! two noise standard deviations around the rest level (the median of the later half of the
+//! frames after the peak); each half-cycle's extreme frame, refined by a parabola through three
+//! frames, is its extremum. A shoulder or a double top never crosses the rest level, so it is
+//! part of its half-cycle, not one of its own. Frequency and decay are reported only where two
+//! clean cycles show (four swings of at least four noise SD after the peak, at a steady pace
+//! and shrinking), else none; the fit ends half a period after the last clean extremum, where
+//! the ringing has died into the noise. The peak-to-peak
 //! swings D_k between consecutive extrema do not depend on the unknown rest position, and for a
 //! viscously damped oscillator they shrink by the same factor every half cycle, so
 //! ln D_k = c + k ln(r) / 2, where r is the amplitude ratio per full cycle. r comes from a
@@ -42,6 +48,57 @@ pub struct Oscillation {
 
 /// Most extrema used: the first few cycles carry the decay; later ones drown in noise.
 const MAX_EXTREMA: usize = 12;
+/// Half-width of the band around the rest level, in noise SD, that the trace must cross to
+/// start a new half-cycle.
+const REST_BAND_SIGMA: f64 = 2.0;
+/// Least peak-to-peak swing, in noise SD, that counts as a clean half-cycle.
+const CLEAR_SWING_SIGMA: f64 = 4.0;
+
+/// The motion peak and the extremum of each half-cycle after it. A half-cycle runs from one
+/// crossing of the band around the rest level to the next, so a shoulder or a double top
+/// (which never crosses the rest level) is part of its half-cycle, not one of its own. The
+/// rest level is the median of the later half of the frames after the peak. Each extremum is
+/// the half-cycle's extreme frame refined by a parabola through three frames.
+fn half_cycle_extrema(
+    t: &[f64],
+    y: &[f64],
+    peak_index: usize,
+    peak: (f64, f64),
+    direction: f64,
+    noise_sigma: f64,
+) -> Vec<(f64, f64)> {
+    let n = y.len();
+    let mut extrema = vec![peak];
+    if peak_index + 8 >= n {
+        return extrema;
+    }
+    let rest = super::median(&y[(peak_index + n) / 2..]);
+    let band = REST_BAND_SIGMA * noise_sigma;
+    // Side of the current half-cycle: +1 above the rest level (in the sign-adjusted measure),
+    // -1 below; the peak's half-cycle is above.
+    let mut side = 1.0;
+    let mut best: Option<usize> = None;
+    for i in peak_index + 1..n {
+        let v = direction * (y[i] - rest);
+        if side * v < -band {
+            // Crossed to the other side: the half-cycle just left ends.
+            if let Some(k) = best.take() {
+                extrema.push(super::refine_extremum(t, y, k));
+            }
+            side = -side;
+            if extrema.len() >= MAX_EXTREMA {
+                break;
+            }
+        }
+        let on_side = side * v > band;
+        let beyond = |k: usize| side * direction * (y[i] - y[k]) > 0.0;
+        // The peak's own half-cycle is already counted.
+        if on_side && (extrema.len() > 1 || side < 0.0) && best.is_none_or(beyond) {
+            best = Some(i);
+        }
+    }
+    extrema
+}
 
 /// Builds the oscillation measures from a per-cycle amplitude ratio and a frequency.
 pub fn from_ratio(frequency_hz: f64, amplitude_ratio: f64, extrema_used: usize) -> Oscillation {
@@ -64,8 +121,8 @@ pub fn from_ratio(frequency_hz: f64, amplitude_ratio: f64, extrema_used: usize) 
 /// Measures the oscillation that starts at the motion peak (frame `peak_index`, refined time and
 /// value `peak`), moving first in direction `-direction`. Returns the oscillation and the time
 /// of the fitted model's first extremum (a motion peak estimate that uses every frame of the
-/// first cycles). `None` when fewer than three extrema stand out of the noise (overdamped or
-/// too short a record).
+/// first cycles). `None` when fewer than two clean cycles stand out of the noise (overdamped,
+/// ringing that dies within a cycle and a half, or too short a record).
 pub fn detect_oscillation(
     t: &[f64],
     y: &[f64],
@@ -75,37 +132,7 @@ pub fn detect_oscillation(
     noise_sigma: f64,
     period_s: f64,
 ) -> Option<(Oscillation, Option<(f64, f64)>)> {
-    let delta = (8.0 * noise_sigma).max(f64::MIN_POSITIVE);
-    let mut extrema = vec![peak];
-    // Looking for a minimum (in the sign-adjusted measure) first.
-    let mut looking_for_max = false;
-    let mut ext_idx = peak_index;
-    let mut ext_val = direction * y[peak_index];
-    for i in peak_index + 1..y.len() {
-        let v = direction * y[i];
-        if looking_for_max {
-            if v > ext_val {
-                ext_val = v;
-                ext_idx = i;
-            } else if ext_val - v > delta {
-                extrema.push(super::refine_extremum(t, y, ext_idx));
-                looking_for_max = false;
-                ext_val = v;
-                ext_idx = i;
-            }
-        } else if v < ext_val {
-            ext_val = v;
-            ext_idx = i;
-        } else if v - ext_val > delta {
-            extrema.push(super::refine_extremum(t, y, ext_idx));
-            looking_for_max = true;
-            ext_val = v;
-            ext_idx = i;
-        }
-        if extrema.len() >= MAX_EXTREMA {
-            break;
-        }
-    }
+    let extrema = half_cycle_extrema(t, y, peak_index, peak, direction, noise_sigma);
     // Keep the swings that stand clear of the noise and keep shrinking at a steady pace.
     let mut swings: Vec<f64> = Vec::new();
     let mut times = vec![extrema[0].0];
@@ -115,14 +142,16 @@ pub fn detect_oscillation(
         let first_half = times.get(1).map(|t1| t1 - times[0]);
         let steady = first_half.is_none_or(|h| half > 0.5 * h && half < 1.5 * h);
         let shrinking = swings.last().is_none_or(|last| d <= 1.2 * last);
-        let clear = d >= 8.0 * noise_sigma && swings.first().is_none_or(|d0| d >= 0.03 * d0);
+        let clear =
+            d >= CLEAR_SWING_SIGMA * noise_sigma && swings.first().is_none_or(|d0| d >= 0.03 * d0);
         if !(steady && shrinking && clear) {
             break;
         }
         swings.push(d);
         times.push(extrema[k].0);
     }
-    if swings.len() < 2 {
+    // Two clean cycles: four swings after the peak.
+    if swings.len() < 4 {
         return None;
     }
     let k: Vec<f64> = (0..swings.len()).map(|k| k as f64).collect();
@@ -322,12 +351,43 @@ mod tests {
     fn ring(fps: f64, f_hz: f64, ratio: f64) -> (Vec<f64>, Vec<f64>) {
         let wd = 2.0 * std::f64::consts::PI * f_hz;
         let s = -ratio.ln() * f_hz;
-        let t: Vec<f64> = (0..400).map(|k| k as f64 / fps).collect();
+        // 30 ms: three cycles at 100 Hz and 20 kfps, so that two whole ones show.
+        let t: Vec<f64> = (0..600).map(|k| k as f64 / fps).collect();
         let y = t
             .iter()
             .map(|&t| 50.0 + 20.0 * (-s * t).exp() * ((wd * t).cos() + s / wd * (wd * t).sin()))
             .collect();
         (t, y)
+    }
+
+    #[test]
+    fn shoulders_and_double_tops_are_not_half_cycles() {
+        // Issue 14, condition 7: a 100 Hz ring with a 500 Hz mode of a fifth of its amplitude
+        // riding on it. The small mode makes shoulders and double tops that never cross the
+        // rest level; they must not be read as half-cycles (which would give 300-500 Hz).
+        let fps = 20_000.0;
+        let (t, mut y) = ring(fps, 100.0, 0.6);
+        for (v, &tk) in y.iter_mut().zip(&t) {
+            *v += 4.0 * (2.0 * std::f64::consts::PI * 500.0 * tk).sin() * (-60.0 * tk).exp();
+        }
+        let (o, _) = detect_oscillation(&t, &y, 0, (t[0], y[0]), 1.0, 0.05, 1.0 / fps).unwrap();
+        assert!(
+            (o.frequency_hz / 100.0 - 1.0).abs() < 0.05,
+            "{}",
+            o.frequency_hz
+        );
+    }
+
+    #[test]
+    fn fewer_than_two_clean_cycles_give_no_oscillation() {
+        // A ring that loses four fifths of its amplitude per cycle, in noise that hides it
+        // after the first cycle and a half: no frequency or decay is reported.
+        let fps = 20_000.0;
+        let (t, y) = ring(fps, 100.0, 0.2);
+        let noise_sigma = 0.25;
+        assert!(detect_oscillation(&t, &y, 0, (t[0], y[0]), 1.0, noise_sigma, 1.0 / fps).is_none());
+        // The same ring with noise ten times smaller shows its cycles.
+        assert!(detect_oscillation(&t, &y, 0, (t[0], y[0]), 1.0, 0.025, 1.0 / fps).is_some());
     }
 
     #[test]
