@@ -572,7 +572,8 @@ const CHI2_999_TWO: f64 = 13.816;
 /// Profile likelihood of the onset with the start's shape as nuisance parameters: for each
 /// candidate onset the residual sum of squares is the least over the shapes of the fit
 /// y = a + b x(t - tau), and the 95 % interval is where that profile stays under the
-/// profile-t limit. The plain shapes (exponent 1 to 2) give the onset unless the wide ones
+/// profile-t limit, over candidates from before the first frame to a fifth of the loading after
+/// the hinge. The plain shapes (exponent 1 to 2) give the onset unless the wide ones
 /// (exponent to 4, a speed ramp that ends) fit better by more than chance; the interval is
 /// the union of both, since a start that gentle cannot be told apart in noise.
 fn power_profile(tt: &[f64], yy: &[f64], guess: f64) -> Option<PowerOnset> {
@@ -584,7 +585,13 @@ fn power_profile(tt: &[f64], yy: &[f64], guess: f64) -> Option<PowerOnset> {
     let t_end = guess + POWER_FIT_SHARE * span;
     let used = tt[..m].partition_point(|&t| t <= t_end);
     let (tt, yy) = (&tt[..used], &yy[..used]);
-    let range = (guess - 0.5 * span, guess + 0.2 * span);
+    // Candidates from before the first frame (a quarter of the loading) to a fifth of the
+    // loading after the hinge: a drive that eases in over most of the loading has its hinge at
+    // the knee, far after its onset.
+    let range = (
+        (guess - 0.5 * span).min(0.0) - 0.25 * span,
+        guess + 0.2 * span,
+    );
     let plain = profile_pass(tt, yy, range, PLAIN)?;
     let Some(wide) = profile_pass(tt, yy, range, WIDE) else {
         return Some(plain.found);
