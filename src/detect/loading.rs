@@ -477,7 +477,7 @@ impl Bins {
 }
 
 /// Variance inflation of a residual series whose noise is correlated (a slow wander of the
-/// tracked point, say): the largest ratio, over blocks of 2, 4, 8 ... frames with at least 16
+/// tracked point, say): the largest ratio, over blocks of 2, 4, 8 ... frames with at least 8
 /// blocks, of the variance of block means to what independent noise would give (the blocking
 /// method of Flyvbjerg and Petersen 1989). 1 or more; 1 for white noise on average.
 fn correlation_inflation(residuals: &[f64]) -> f64 {
@@ -488,7 +488,7 @@ fn correlation_inflation(residuals: &[f64]) -> f64 {
     }
     let mut g = 1.0f64;
     let mut block = 2;
-    while n / block >= 16 {
+    while n / block >= 8 {
         let means: Vec<f64> = residuals
             .chunks_exact(block)
             .map(|c| c.iter().sum::<f64>() / block as f64)
