@@ -323,9 +323,23 @@ pub fn scan_transients(
     hints: &[SearchHint],
 ) -> TransientScan {
     let fs = signal.sample_rate_hz;
-    let x = &signal.samples;
     let sections = butterworth_highpass(4, config.highpass_hz, fs);
-    let blocks = BlockFloor::new(x, fs, &sections);
+    let blocks = BlockFloor::new(&signal.samples, fs, &sections);
+    scan_over_floor(signal, config, scratch, hints, &sections, &blocks)
+}
+
+/// [`scan_transients`] once the high-pass and the cheap block pass are made (they do not
+/// depend on the detection band, so two bands share them).
+fn scan_over_floor(
+    signal: &AudioSignal,
+    config: &ClickConfig,
+    scratch: &mut ClickScratch,
+    hints: &[SearchHint],
+    sections: &[super::filter::Section],
+    blocks: &BlockFloor,
+) -> TransientScan {
+    let fs = signal.sample_rate_hz;
+    let x = &signal.samples;
     let noise_sigma = blocks.noise_var.sqrt();
     let mut transients = Vec::new();
     if blocks.noise_var.is_nan() || blocks.noise_var <= 0.0 || x.is_empty() {
@@ -338,12 +352,12 @@ pub fn scan_transients(
     let ctx = ScanContext {
         signal,
         config,
-        sections: &sections,
+        sections,
         noise_sigma,
         guided: &guided,
     };
     let mut spread_cache = None;
-    for (w0, w1) in candidate_windows(&blocks, &guided, fs, x.len()) {
+    for (w0, w1) in candidate_windows(blocks, &guided, fs, x.len()) {
         transients.extend(scan_window(&ctx, w0, w1, scratch, &mut spread_cache));
         if transients.len() >= MAX_TRANSIENTS {
             transients.truncate(MAX_TRANSIENTS);
@@ -556,9 +570,13 @@ fn scan_both_bands(
             ..*h
         })
         .collect();
+    let fs = signal.sample_rate_hz;
+    let sections = butterworth_highpass(4, config.highpass_hz, fs);
+    let blocks = BlockFloor::new(&signal.samples, fs, &sections);
     let band = halve(config, config.detection_top_hz);
-    let mut scan = scan_transients(signal, &band, scratch, &halved);
-    let full = scan_transients(signal, &halve(config, full_top), scratch, &halved);
+    let mut scan = scan_over_floor(signal, &band, scratch, &halved, &sections, &blocks);
+    let full_band = halve(config, full_top);
+    let full = scan_over_floor(signal, &full_band, scratch, &halved, &sections, &blocks);
     let merge_s = config.merge_ms * 1e-3;
     for t in full.transients {
         // Inside a band transient (from its onset to the end of its ringing) it is that one.
