@@ -52,7 +52,7 @@ fn check(r: &ValidationReport) {
     assert!(click.median_abs_error.unwrap() <= 20.0, "{at}: {click:?}");
     assert!(click.p95_abs_error.unwrap() <= 100.0, "{at}: {click:?}");
     // Target: misses <= 1 % (2 / 1 / 0 of 265 on this seed, all at 10-13 dB). On 6000 trials
-    // 48 kHz misses 0.67-0.73 % (README), so this seed is a guard, not the estimate. Nothing
+    // 48 kHz misses 0.67-0.73 % (calibration/README.md), so this seed is a guard, not the estimate. Nothing
     // at 13 dB or more may be missed on this seed (none of 1094 was on 6000 trials).
     assert!(
         (click.misses as f64) <= 0.01 * click.n as f64,
