@@ -54,6 +54,30 @@ fn report_over_the_sample_data_links_a_figure_for_every_trial() {
         let svg = std::fs::read_to_string(out.path().join(format!("plots/{name}.svg"))).unwrap();
         parse_xml(&svg).unwrap_or_else(|e| panic!("{name}.svg does not parse: {e}"));
         assert!(svg.contains(name.as_str()), "{name}.svg has no title");
+        // Every panel names its axes with units; a trial with a release has its close-up,
+        // with the fitted oscillation drawn over the frames when the record holds the fit.
+        let record = common::read_json(&out.path().join(format!("trials/{name}.json")));
+        if record["audio_file"].is_string() {
+            assert!(svg.contains("time, s (audio clock)"), "{name}: axis title");
+        }
+        if record["frames_file"].is_string() {
+            assert!(svg.contains("time, s (video clock)"), "{name}: axis title");
+        }
+        if record["latch_release_s"].is_number() {
+            assert!(svg.contains("Release close-up"), "{name}: no close-up");
+            assert!(
+                svg.contains("time from latch release, ms (video clock)"),
+                "{name}"
+            );
+            assert!(svg.contains("\nrelease\n"), "{name}: release label");
+            assert!(svg.contains("\nmotion peak\n"), "{name}: peak label");
+        }
+        if record["oscillation"]["model"].is_array() {
+            assert!(svg.contains("damped fit after the peak"), "{name}: fit");
+        }
+        if record["loading_ms"].is_number() {
+            assert!(svg.contains("(sd "), "{name}: uncertainty in the title");
+        }
     }
     // Flagged trials are listed before the others.
     let first_ok = html.find("<tr class=\"ok\">").unwrap();

@@ -132,21 +132,21 @@ pub fn write_report(
     .iter()
     .enumerate()
     {
-        let data: Vec<report::plots::StripGroup> = by_group
+        let data: Vec<report::charts::StripGroup> = by_group
             .iter()
             .map(|(g, v)| {
                 let summary = report::groups::stats(&v[k]).map(|s| (s.mean, s.ci_low, s.ci_high));
                 (g.clone(), v[k].clone(), summary)
             })
             .collect();
-        let chart = report::plots::strip_chart(title, &data)
+        let chart = report::charts::strip_chart(title, &data)
             .map_err(|e| Error::malformed(out_dir, format!("cannot draw {title}: {e}")))?;
         page.group_charts.push(chart);
     }
     if !residuals.is_empty() {
         let tolerance = crate::detect::median(&tolerances);
         page.residual_chart = Some(
-            report::plots::residual_chart(&residuals, tolerance).map_err(|e| {
+            report::charts::residual_chart(&residuals, tolerance).map_err(|e| {
                 Error::malformed(out_dir, format!("cannot draw the clock residuals: {e}"))
             })?,
         );
