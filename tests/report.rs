@@ -79,6 +79,16 @@ fn report_over_the_sample_data_links_a_figure_for_every_trial() {
             assert!(svg.contains("(sd "), "{name}: uncertainty in the title");
         }
     }
+    // What made the page is at its top, the settings at its bottom, and the switch that puts
+    // flagged trials into the group means is there; chart points are named and linked.
+    let run = common::read_json(&out.path().join("run.json"));
+    let hash = run["settings_sha256"].as_str().unwrap();
+    assert!(html.find(hash).unwrap() < html.find("<h2>Groups</h2>").unwrap());
+    assert!(html.contains("calibration/demo-rig.json"));
+    assert!(html.find("<h2>Settings</h2>").unwrap() > html.find("<h2>Trials</h2>").unwrap());
+    assert!(html.contains("id=\"with-flagged\""));
+    assert!(html.contains("<title>ls2-mid-01: "), "no hover name");
+    assert!(html.contains("Recording time from: file modification time"));
     // Flagged trials are listed before the others.
     let first_ok = html.find("<tr class=\"ok\">").unwrap();
     let last_flagged = html.rfind("<tr class=\"flagged\">").unwrap();
