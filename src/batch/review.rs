@@ -196,7 +196,7 @@ fn residual_chart(mut residuals: Vec<Residual>) -> Result<Option<(String, String
     let span_s = timed.iter().fold(0.0f64, |m, t| m.max(t - first));
     let (unit, per_s) = time_unit(span_s);
     let x_desc = format!(
-        "{unit} since the first recording, {} UTC",
+        "{unit} since the first recording, {}",
         humantime::format_rfc3339_seconds(start)
     );
     let points: Vec<report::charts::Point> = residuals
