@@ -230,6 +230,9 @@ pub struct TrialRecord {
     pub click: Option<ClickMeasures>,
     pub sync: Option<SyncCheck>,
     pub audio_sample_rate_hz: Option<f64>,
+    /// Written to 9 significant digits: the rate is the inverse of a fitted period, and the
+    /// last digits of `999.9999999999998` say nothing.
+    #[serde(serialize_with = "nine_digits")]
     pub video_fps: Option<f64>,
     pub missing_frames: Option<u64>,
     /// Samples decoded per channel and their duration at the sample rate.
@@ -245,6 +248,14 @@ pub struct TrialRecord {
     pub video_duration_s: Option<f64>,
     pub frames_input: Option<FramesInput>,
     pub provenance: Provenance,
+}
+
+/// `v` rounded to 9 significant digits for writing.
+fn nine_digits<S: serde::Serializer>(v: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
+    match v.map(|v| format!("{v:.8e}").parse::<f64>().unwrap_or(v)) {
+        Some(v) => s.serialize_some(&v),
+        None => s.serialize_none(),
+    }
 }
 
 /// A 95 % half-width kept in memory, written as the standard uncertainty it stands for (over
@@ -616,6 +627,9 @@ mod tests {
             assert!(!key.ends_with("_ms_sd"), "{key}");
         }
         let back: TrialRecord = serde_json::from_value(json).unwrap();
+        let mut r = TrialRecord::empty("t", None);
+        r.video_fps = Some(999.9999999999998);
+        assert_eq!(serde_json::to_value(&r).unwrap()["video_fps"], 1000.0);
         assert!((back.loading_onset_uncertainty_ms.unwrap() - 1.96).abs() < 1e-12);
         assert_eq!(back.loading_ms_sd, Some(0.5));
     }
