@@ -100,3 +100,31 @@ fn report_command_on_a_folder_without_records_is_a_usage_error() {
     let dir = tempfile::tempdir().unwrap();
     bin().arg("report").arg(dir.path()).assert().code(2);
 }
+
+#[test]
+fn the_clock_chart_takes_recording_times_from_the_manifest_and_names_the_source() {
+    let dir = tempfile::tempdir().unwrap();
+    let sample = repo().join("sample-audio");
+    let mut manifest = String::from("trial,audio,frames,group,recorded_at\n");
+    for (i, name) in ["ls2-mid-01", "ls2-mid-02", "ls2-thin-01"]
+        .iter()
+        .enumerate()
+    {
+        manifest.push_str(&format!(
+            "{name},{}/{name}.wav,{}/{name}.frames.csv,g,2026-03-01 2{i}:15:00\n",
+            sample.display(),
+            sample.display()
+        ));
+    }
+    let path = dir.path().join("m.csv");
+    std::fs::write(&path, manifest).unwrap();
+    let out = dir.path().join("out");
+    common::sample_batch(path.to_str().unwrap(), &out, &["--report"]);
+    let html = std::fs::read_to_string(out.join("report.html")).unwrap();
+    assert!(
+        html.contains("Recording time from: manifest column recorded_at (3)."),
+        "source not named"
+    );
+    // Two hours from the first to the last recording: the axis is in hours.
+    assert!(html.contains("hours since the first recording, 2026-03-01T20:15:00Z"));
+}

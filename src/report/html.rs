@@ -165,14 +165,20 @@ pub fn render(page: &ReviewPage) -> String {
         count(Status::Flagged),
         count(Status::Error)
     );
-    let _ = writeln!(
-        h,
-        "<table class=\"counts\"><tr><th>flag</th><th>trials</th></tr>"
-    );
-    for (flag, n) in &page.flag_counts {
-        let _ = writeln!(h, "<tr><td>{}</td><td>{n}</td></tr>", escape(flag));
+    // Only the flags raised; the README lists them all.
+    let raised: Vec<&(String, usize)> = page.flag_counts.iter().filter(|f| f.1 > 0).collect();
+    if raised.is_empty() {
+        let _ = writeln!(h, "<p>No trial carries a flag.</p>");
+    } else {
+        let _ = writeln!(
+            h,
+            "<table class=\"counts\"><tr><th>flag</th><th>trials</th></tr>"
+        );
+        for (flag, n) in raised {
+            let _ = writeln!(h, "<tr><td>{}</td><td>{n}</td></tr>", escape(flag));
+        }
+        let _ = writeln!(h, "</table>");
     }
-    let _ = writeln!(h, "</table>");
     let flagged = count(Status::Flagged);
     let _ = writeln!(
         h,
