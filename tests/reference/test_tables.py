@@ -5,12 +5,12 @@ no string parsing."""
 import json
 import math
 import re
+import subprocess
 
 import pandas as pd
 import pytest
 
 from conftest import BIN, ROOT
-import subprocess
 
 # The columns a user's script relies on, written out here rather than taken from the code.
 FLAGS = [
