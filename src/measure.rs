@@ -190,6 +190,10 @@ pub struct TrialRecord {
     /// Faint clicks before the main click's group, or in a trial without a click.
     pub ticks_s: Option<Vec<f64>>,
     pub loading_onset_s: Option<f64>,
+    /// Half-width of the onset's 95 % interval, ms (the larger side). Written in records and
+    /// tables as its standard uncertainty, `loading_onset_sd_ms` (this over 1.96), the value
+    /// the loading time's uncertainty is propagated from.
+    #[serde(rename = "loading_onset_sd_ms", default, with = "half_width_as_sd")]
     pub loading_onset_uncertainty_ms: Option<f64>,
     pub loading_onset_early_s: Option<f64>,
     pub loading_onset_late_s: Option<f64>,
@@ -211,8 +215,12 @@ pub struct TrialRecord {
     #[serde(default)]
     pub fast_phase_end_sd_ms: Option<f64>,
     pub loading_ms: Option<f64>,
+    /// Standard uncertainty of `loading_ms`; named by the one rule `<measure>_sd_<unit>`.
+    #[serde(rename = "loading_sd_ms", alias = "loading_ms_sd")]
     pub loading_ms_sd: Option<f64>,
     pub release_ms: Option<f64>,
+    /// Standard uncertainty of `release_ms`.
+    #[serde(rename = "release_sd_ms", alias = "release_ms_sd")]
     pub release_ms_sd: Option<f64>,
     pub amplification_lossless: Option<f64>,
     pub efficiency: Option<f64>,
@@ -222,6 +230,9 @@ pub struct TrialRecord {
     pub click: Option<ClickMeasures>,
     pub sync: Option<SyncCheck>,
     pub audio_sample_rate_hz: Option<f64>,
+    /// Written to 9 significant digits: the rate is the inverse of a fitted period, and the
+    /// last digits of `999.9999999999998` say nothing.
+    #[serde(serialize_with = "nine_digits")]
     pub video_fps: Option<f64>,
     pub missing_frames: Option<u64>,
     /// Samples decoded per channel and their duration at the sample rate.
@@ -237,6 +248,34 @@ pub struct TrialRecord {
     pub video_duration_s: Option<f64>,
     pub frames_input: Option<FramesInput>,
     pub provenance: Provenance,
+}
+
+/// `v` rounded to 9 significant digits for writing.
+fn nine_digits<S: serde::Serializer>(v: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
+    match v.map(|v| format!("{v:.8e}").parse::<f64>().unwrap_or(v)) {
+        Some(v) => s.serialize_some(&v),
+        None => s.serialize_none(),
+    }
+}
+
+/// A 95 % half-width kept in memory, written as the standard uncertainty it stands for (over
+/// 1.96, the normal quantile the half-width was made with) and read back the same way.
+mod half_width_as_sd {
+    use serde::{Deserialize, Deserializer, Serializer};
+
+    /// The two-sided 95 % normal quantile.
+    const Z95: f64 = 1.96;
+
+    pub fn serialize<S: Serializer>(v: &Option<f64>, s: S) -> Result<S::Ok, S::Error> {
+        match v {
+            Some(half_width) => s.serialize_some(&(half_width / Z95)),
+            None => s.serialize_none(),
+        }
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Option<f64>, D::Error> {
+        Ok(Option::<f64>::deserialize(d)?.map(|sd| sd * Z95))
+    }
 }
 
 impl TrialRecord {
@@ -565,5 +604,33 @@ mod tests {
         assert!((r.loading_ms_sd.unwrap() - (1.0f64 / 1.96).hypot(0.1)).abs() < 1e-9);
         assert!(r.amplification_sd.unwrap() > 0.0);
         assert_eq!(r.status, Status::Ok);
+    }
+
+    #[test]
+    fn every_uncertainty_is_written_as_measure_sd_unit() {
+        let mut r = TrialRecord::empty("t", None);
+        r.loading_onset_uncertainty_ms = Some(1.96);
+        r.loading_ms_sd = Some(0.5);
+        r.release_ms_sd = Some(0.25);
+        let json = serde_json::to_value(&r).unwrap();
+        let obj = json.as_object().unwrap();
+        assert_eq!(obj["loading_onset_sd_ms"], 1.0);
+        assert_eq!(obj["loading_sd_ms"], 0.5);
+        assert_eq!(obj["release_sd_ms"], 0.25);
+        for key in obj.keys() {
+            let sd_part = key.contains("_sd") || key.contains("uncertainty");
+            let rule = key.contains("_sd_") || key.ends_with("_sd");
+            assert!(
+                !sd_part || rule,
+                "{key} breaks the <measure>_sd_<unit> rule"
+            );
+            assert!(!key.ends_with("_ms_sd"), "{key}");
+        }
+        let back: TrialRecord = serde_json::from_value(json).unwrap();
+        let mut r = TrialRecord::empty("t", None);
+        r.video_fps = Some(999.9999999999998);
+        assert_eq!(serde_json::to_value(&r).unwrap()["video_fps"], 1000.0);
+        assert!((back.loading_onset_uncertainty_ms.unwrap() - 1.96).abs() < 1e-12);
+        assert_eq!(back.loading_ms_sd, Some(0.5));
     }
 }

@@ -174,13 +174,25 @@ fn a_changed_rig_setting_recomputes_the_trials_it_affects() {
 fn groups_csv_matches_statistics_computed_from_summary_csv() {
     let out = tempfile::tempdir().unwrap();
     common::sample_batch("sample-audio/manifest.csv", out.path(), &[]);
-    let groups = std::fs::read_to_string(out.path().join("groups.csv")).unwrap();
-    let mut lines = groups.lines();
-    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
-    let rows: Vec<Vec<&str>> = lines.map(|l| l.split(',').collect()).collect();
-    assert_eq!(rows.len(), 4, "three groups and the row over all trials");
-    let col = |name: &str| header.iter().position(|h| *h == name).unwrap();
-    let thin = rows.iter().find(|r| r[0] == "leaf-0.8mm").unwrap();
+    // Read as a statistics user does: one number per row, looked up by group, measure and
+    // statistic.
+    let mut reader = csv::Reader::from_path(out.path().join("groups.csv")).unwrap();
+    let header: Vec<String> = reader.headers().unwrap().iter().map(String::from).collect();
+    assert_eq!(header, ["group", "measure", "statistic", "value", "note"]);
+    let rows: Vec<csv::StringRecord> = reader.records().map(|r| r.unwrap()).collect();
+    let groups: std::collections::BTreeSet<&str> = rows.iter().map(|r| &r[0]).collect();
+    assert_eq!(
+        groups.len(),
+        4,
+        "three groups and the row over all trials: {groups:?}"
+    );
+    let cell = |g: &str, m: &str, s: &str| {
+        rows.iter()
+            .find(|r| &r[0] == g && &r[1] == m && &r[2] == s)
+            .unwrap_or_else(|| panic!("no row {g},{m},{s}"))
+            .clone()
+    };
+    let get = |m: &str, s: &str| cell("leaf-0.8mm", m, s)[3].parse::<f64>().unwrap();
     // Recompute loading_ms statistics for the group from the records, independently.
     let mut loading: Vec<f64> = (1..=5)
         .filter_map(|i| {
@@ -191,15 +203,18 @@ fn groups_csv_matches_statistics_computed_from_summary_csv() {
     let n = loading.len() as f64;
     let mean = loading.iter().sum::<f64>() / n;
     let sd = (loading.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0)).sqrt();
-    let get = |name: &str| thin[col(name)].parse::<f64>().unwrap();
-    assert_eq!(get("loading_ms_n"), n);
-    assert!((get("loading_ms_mean") - mean).abs() < 1e-5);
-    assert!((get("loading_ms_sd") - sd).abs() < 1e-5);
-    assert_eq!(thin[col("trials")], "5");
-    assert_eq!(thin[col("n_double_click")], "1");
-    assert_eq!(thin[col("n_clipped")], "1");
-    assert!(get("loading_ms_ci95_low") <= mean && mean <= get("loading_ms_ci95_high"));
-    let all = rows.last().unwrap();
-    assert_eq!(all[0], "(all)");
-    assert_eq!(all[col("trials")], "14");
+    // Six significant digits: within 1e-5 of the value, relative.
+    assert_eq!(get("loading_ms", "n"), n);
+    assert!((get("loading_ms", "mean") - mean).abs() < 1e-5 * mean);
+    assert!((get("loading_ms", "sd") - sd).abs() < 1e-5 * sd);
+    assert_eq!(get("trials", "count"), 5.0);
+    assert_eq!(get("flag_double_click", "count"), 1.0);
+    assert_eq!(get("flag_clipped", "count"), 1.0);
+    if n >= 5.0 {
+        assert!(get("loading_ms", "ci95_low") <= mean && mean <= get("loading_ms", "ci95_high"));
+    } else {
+        let low = cell("leaf-0.8mm", "loading_ms", "ci95_low");
+        assert!(low[3].is_empty() && low[4].contains("n < 5"), "{low:?}");
+    }
+    assert_eq!(&cell("(all)", "trials", "count")[3], "14");
 }

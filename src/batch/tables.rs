@@ -129,7 +129,7 @@ pub(crate) fn write_tables(
     let mut buf = Vec::new();
     {
         let mut w = csv::Writer::from_writer(&mut buf);
-        w.write_record(report::csv::SUMMARY_COLUMNS)
+        w.write_record(report::csv::summary_columns())
             .map_err(csv_err)?;
         for (name, path) in &records.records {
             if std::fs::symlink_metadata(path).is_err() {

@@ -3,6 +3,11 @@
 //! amplitude ratio: n, mean, sample standard deviation, median, quartiles (linear
 //! interpolation between order statistics, numpy's default) and a percentile bootstrap 95 %
 //! interval of the mean (2000 resamples, fixed seed, so the table is reproducible).
+//!
+//! The table is in long form, one number per row (`group, measure, statistic, value, note`),
+//! so R and pandas read it as it is and pivot it as they need. A statistic that cannot be given
+//! is an empty value with the reason in `note`: a standard deviation below n = 2, and a
+//! bootstrap interval below [`MIN_N_BOOTSTRAP`] trials.
 
 use std::collections::BTreeMap;
 use std::io::Write;
@@ -17,6 +22,10 @@ use crate::measure::{Flag, Status, TrialRecord};
 pub const BOOTSTRAP_RESAMPLES: usize = 2000;
 /// Seed of the bootstrap generator.
 pub const BOOTSTRAP_SEED: u64 = 0x1a7c_4e11;
+/// Fewest values a bootstrap interval is given for. With fewer, the percentile bootstrap of
+/// the mean is little more than the range of the values and covers the true mean far less
+/// often than 95 % (common practice puts the least useful n at about 5 to 10).
+pub const MIN_N_BOOTSTRAP: usize = 5;
 /// Name of the row over every trial.
 pub const ALL_GROUPS: &str = "(all)";
 /// Name used for trials without a group.
@@ -38,17 +47,8 @@ pub const METRICS: [(&str, MetricFn); 5] = [
     }),
 ];
 
-/// The flags counted per group, in column order.
-pub const FLAGS: [Flag; 8] = [
-    Flag::NoClick,
-    Flag::DoubleClick,
-    Flag::NoLoading,
-    Flag::NoRelease,
-    Flag::Clipped,
-    Flag::SyncMismatch,
-    Flag::LowSnr,
-    Flag::FrameGaps,
-];
+/// The flags counted per group, in the order records list them.
+pub const FLAGS: [Flag; Flag::ALL.len()] = Flag::ALL;
 
 /// Summary statistics of one sample.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -107,6 +107,40 @@ pub fn stats(values: &[f64]) -> Option<Stats> {
     })
 }
 
+/// Significant digits of every statistic: one more than the trial values carry.
+const STATISTIC_DIGITS: super::csv::Precision = super::csv::Precision::Significant(6);
+
+/// The statistic rows of one measure: (statistic, value, note), an empty value with the reason
+/// where the statistic cannot be given.
+fn statistic_cells(s: Option<Stats>) -> Vec<(&'static str, String, &'static str)> {
+    let Some(s) = s else {
+        return vec![("n", "0".into(), "no trial has this value")];
+    };
+    let num = |v: f64| super::csv::number(Some(v), STATISTIC_DIGITS);
+    let cell = |name, v: f64, given: bool, reason| {
+        if given {
+            (name, num(v), "")
+        } else {
+            (name, String::new(), reason)
+        }
+    };
+    let spread = s.n >= 2;
+    let boot = s.n >= MIN_N_BOOTSTRAP;
+    const NO_SD: &str = "n < 2: no standard deviation";
+    const NO_CI: &str = "n < 5: no bootstrap interval (it would be little more than the range)";
+    vec![
+        ("n", s.n.to_string(), ""),
+        ("mean", num(s.mean), ""),
+        cell("sd", s.sd, spread, NO_SD),
+        ("median", num(s.median), ""),
+        ("q1", num(s.q1), ""),
+        ("q3", num(s.q3), ""),
+        ("iqr", num(s.q3 - s.q1), ""),
+        cell("ci95_low", s.ci_low, boot, NO_CI),
+        cell("ci95_high", s.ci_high, boot, NO_CI),
+    ]
+}
+
 /// Accumulates records group by group; holds only the few numbers per trial it needs.
 #[derive(Debug, Default)]
 pub struct GroupTable {
@@ -156,70 +190,45 @@ impl GroupTable {
     }
 
     /// Column names of `groups.csv`.
-    pub fn header() -> Vec<String> {
-        let mut h: Vec<String> = ["group", "trials", "ok", "flagged", "error"]
-            .map(String::from)
-            .to_vec();
-        h.extend(FLAGS.iter().map(|f| format!("n_{}", f.as_str())));
-        for (m, _) in METRICS {
-            for s in [
-                "n",
-                "mean",
-                "sd",
-                "median",
-                "q1",
-                "q3",
-                "iqr",
-                "ci95_low",
-                "ci95_high",
-            ] {
-                h.push(format!("{m}_{s}"));
-            }
-        }
-        h
+    pub fn header() -> [&'static str; 5] {
+        ["group", "measure", "statistic", "value", "note"]
     }
 
-    /// Rows of `groups.csv`: each group in name order, then the row over all trials; cells made
-    /// safe for spreadsheets (group names come from the manifest).
-    pub fn rows(&self) -> Vec<Vec<String>> {
-        let fmt = |v: f64| {
-            if v.is_finite() {
-                format!("{v:.6}")
-            } else {
-                String::new()
-            }
-        };
+    /// Rows of `groups.csv`: each group in name order, then the row over all trials; within a
+    /// group the counts, then each measure's statistics. Cells are made safe for spreadsheets
+    /// (group names come from the manifest).
+    pub fn rows(&self) -> Vec<[String; 5]> {
         let mut order: Vec<&String> = self.groups.keys().filter(|g| *g != ALL_GROUPS).collect();
         order.extend(self.groups.keys().filter(|g| *g == ALL_GROUPS));
-        order
-            .into_iter()
-            .map(|g| {
-                let a = &self.groups[g];
-                let mut row = vec![g.clone(), a.trials.to_string()];
-                row.extend(a.status.iter().map(|c| c.to_string()));
-                row.extend(a.flags.iter().map(|c| c.to_string()));
-                for values in &a.values {
-                    match stats(values) {
-                        Some(s) => row.extend([
-                            s.n.to_string(),
-                            fmt(s.mean),
-                            fmt(s.sd),
-                            fmt(s.median),
-                            fmt(s.q1),
-                            fmt(s.q3),
-                            fmt(s.q3 - s.q1),
-                            fmt(s.ci_low),
-                            fmt(s.ci_high),
-                        ]),
-                        None => {
-                            row.push("0".into());
-                            row.extend(std::iter::repeat_n(String::new(), 8));
-                        }
-                    }
+        let mut rows = Vec::new();
+        for g in order {
+            let a = &self.groups[g];
+            let mut push = |measure: &str, statistic: &str, value: String, note: &str| {
+                rows.push(
+                    [
+                        g.clone(),
+                        measure.into(),
+                        statistic.into(),
+                        value,
+                        note.into(),
+                    ]
+                    .map(super::csv::safe_cell),
+                );
+            };
+            push("trials", "count", a.trials.to_string(), "");
+            for (name, n) in ["ok", "flagged", "error"].iter().zip(a.status) {
+                push("trials", name, n.to_string(), "");
+            }
+            for (flag, n) in FLAGS.iter().zip(a.flags) {
+                push(&super::csv::flag_column(*flag), "count", n.to_string(), "");
+            }
+            for ((measure, _), values) in METRICS.iter().zip(&a.values) {
+                for (statistic, value, note) in statistic_cells(stats(values)) {
+                    push(measure, statistic, value, note);
                 }
-                row.into_iter().map(super::csv::safe_cell).collect()
-            })
-            .collect()
+            }
+        }
+        rows
     }
 
     /// Writes `groups.csv` to `out`.
@@ -285,15 +294,45 @@ mod tests {
         t.add(&a);
         t.add(&b);
         let rows = t.rows();
-        assert_eq!(rows.len(), 2);
-        let h = GroupTable::header();
-        let col = |name: &str| h.iter().position(|c| c == name).unwrap();
-        assert_eq!(rows[0][0], "g1");
-        assert_eq!(rows[0][col("n_double_click")], "1");
-        assert_eq!(rows[0][col("error")], "1");
-        assert_eq!(rows[0][col("loading_ms_n")], "1");
-        assert_eq!(rows[0][col("loading_ms_mean")], "80.000000");
-        assert_eq!(rows[1][0], ALL_GROUPS);
-        assert_eq!(rows[0].len(), h.len());
+        let find = |g: &str, m: &str, s: &str| {
+            rows.iter()
+                .find(|r| r[0] == g && r[1] == m && r[2] == s)
+                .unwrap_or_else(|| panic!("no row {g} {m} {s}"))
+                .clone()
+        };
+        assert_eq!(find("g1", "flag_double_click", "count")[3], "1");
+        assert_eq!(find("g1", "trials", "error")[3], "1");
+        assert_eq!(find("g1", "loading_ms", "n")[3], "1");
+        assert_eq!(find("g1", "loading_ms", "mean")[3], "80.0000");
+        assert_eq!(find("g1", "loading_ms", "sd")[3], "");
+        assert_eq!(find("(all)", "trials", "count")[3], "2");
+        assert_eq!(rows.last().unwrap()[0], ALL_GROUPS);
+        assert!(rows.iter().all(|r| r.len() == GroupTable::header().len()));
+    }
+
+    #[test]
+    fn no_bootstrap_interval_below_five_values_and_the_reason_is_given() {
+        let mut t = GroupTable::default();
+        for (i, v) in [80.0, 82.0, 79.0, 85.0, 81.0].iter().enumerate() {
+            let mut r =
+                TrialRecord::empty(&format!("t{i}"), Some(if i < 4 { "small" } else { "x" }));
+            r.loading_ms = Some(*v);
+            t.add(&r);
+        }
+        let rows = t.rows();
+        let find = |g: &str, s: &str| {
+            rows.iter()
+                .find(|r| r[0] == g && r[1] == "loading_ms" && r[2] == s)
+                .unwrap()
+                .clone()
+        };
+        let small = find("small", "ci95_low");
+        assert_eq!(small[3], "");
+        assert!(small[4].contains("n < 5"), "{small:?}");
+        assert_eq!(find("small", "sd")[4], "");
+        let all_low: f64 = find(ALL_GROUPS, "ci95_low")[3].parse().unwrap();
+        let all_high: f64 = find(ALL_GROUPS, "ci95_high")[3].parse().unwrap();
+        assert!(all_low < 81.4 && 81.4 < all_high, "{all_low} {all_high}");
+        assert_eq!(find(ALL_GROUPS, "ci95_low")[4], "");
     }
 }

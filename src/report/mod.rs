@@ -2,6 +2,7 @@
 //! deterministic (no timestamps, fixed float formatting) so outputs can be compared byte for byte.
 
 pub mod campaign;
+pub mod charts;
 pub mod csv;
 pub mod groups;
 pub mod html;

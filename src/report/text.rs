@@ -8,6 +8,14 @@ fn opt(v: Option<f64>, decimals: usize, unit: &str) -> String {
     v.map_or_else(|| "-".to_string(), |v| format!("{v:.decimals$}{unit}"))
 }
 
+/// A value with its standard uncertainty beside it, when there is one.
+fn with_sd(v: Option<f64>, decimals: usize, unit: &str, sd: Option<f64>, sd_unit: &str) -> String {
+    match (v, sd) {
+        (Some(_), Some(sd)) => format!("{}  (sd {sd:.3}{sd_unit})", opt(v, decimals, unit)),
+        _ => opt(v, decimals, unit),
+    }
+}
+
 /// Renders `record` as a few aligned lines.
 pub fn render(record: &TrialRecord) -> String {
     let mut s = String::new();
@@ -24,7 +32,13 @@ pub fn render(record: &TrialRecord) -> String {
     let _ = writeln!(
         s,
         "  click onset       {}",
-        opt(record.click_onset_s, 6, " s")
+        with_sd(
+            record.click_onset_s,
+            6,
+            " s",
+            record.click.as_ref().map(|c| c.onset_sd_ms),
+            " ms"
+        )
     );
     if let Some(clicks) = &record.clicks_s {
         let list: Vec<String> = clicks.iter().map(|c| format!("{c:.6}")).collect();
@@ -52,35 +66,53 @@ pub fn render(record: &TrialRecord) -> String {
     let _ = writeln!(
         s,
         "  loading onset     {}",
-        opt(record.loading_onset_s, 6, " s")
+        with_sd(
+            record.loading_onset_s,
+            6,
+            " s",
+            record.loading_onset_uncertainty_ms.map(|u| u / 1.96),
+            " ms"
+        )
     );
     let _ = writeln!(
         s,
         "  latch release     {}",
-        opt(record.latch_release_s, 6, " s")
+        with_sd(
+            record.latch_release_s,
+            6,
+            " s",
+            record.latch_release_sd_ms,
+            " ms"
+        )
     );
     let _ = writeln!(
         s,
         "  motion peak       {}",
-        opt(record.motion_peak_s, 6, " s")
+        with_sd(
+            record.motion_peak_s,
+            6,
+            " s",
+            record.motion_peak_sd_ms,
+            " ms"
+        )
     );
     let _ = writeln!(s, "timing");
     let _ = writeln!(
         s,
         "  loading           {}",
-        opt(record.loading_ms, 2, " ms")
+        with_sd(record.loading_ms, 2, " ms", record.loading_ms_sd, " ms")
     );
     let _ = writeln!(
         s,
         "  release           {}",
-        opt(record.release_ms, 3, " ms")
+        with_sd(record.release_ms, 3, " ms", record.release_ms_sd, " ms")
     );
     let _ = writeln!(
         s,
-        "  amplification     {} lossless, efficiency {}, {} net",
+        "  amplification     {} = {} lossless x efficiency {}",
+        with_sd(record.amplification, 2, "", record.amplification_sd, ""),
         opt(record.amplification_lossless, 2, ""),
-        opt(record.efficiency, 3, ""),
-        opt(record.amplification, 2, "")
+        opt(record.efficiency, 3, "")
     );
     if let Some(o) = &record.oscillation {
         let _ = writeln!(
@@ -97,4 +129,29 @@ pub fn render(record: &TrialRecord) -> String {
         );
     }
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn every_measure_is_shown_with_its_uncertainty() {
+        let mut r = TrialRecord::empty("t", None);
+        r.latch_release_s = Some(0.2);
+        r.latch_release_sd_ms = Some(0.0125);
+        r.loading_ms = Some(84.0);
+        r.loading_ms_sd = Some(1.5);
+        r.amplification_lossless = Some(21.0);
+        r.efficiency = Some(0.4);
+        r.amplification = Some(8.4);
+        r.amplification_sd = Some(0.9);
+        let text = render(&r);
+        assert!(text.contains("0.200000 s  (sd 0.013 ms)"), "{text}");
+        assert!(text.contains("84.00 ms  (sd 1.500 ms)"), "{text}");
+        assert!(
+            text.contains("8.40  (sd 0.900) = 21.00 lossless x efficiency 0.400"),
+            "{text}"
+        );
+    }
 }

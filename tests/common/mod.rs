@@ -95,10 +95,7 @@ pub fn compare(record: &Value, truth: &Value, tol: &Tolerance) -> Vec<String> {
     close("click_onset_s", tol.click_s);
     // Loading onsets are limited by the drift's size against the noise, not by the frame rate:
     // within twice the reported 95 % half-width, or the frame tolerance if that is larger.
-    let loading_unc_s = record["loading_onset_uncertainty_ms"]
-        .as_f64()
-        .unwrap_or(0.0)
-        * 1e-3;
+    let loading_unc_s = record["loading_onset_sd_ms"].as_f64().unwrap_or(0.0) * 1.96 * 1e-3;
     close(
         "loading_onset_s",
         (tol.video_frames / fps).max(2.0 * loading_unc_s),
