@@ -214,6 +214,10 @@ pub struct TrialRecord {
     pub fast_phase_end_s: Option<f64>,
     #[serde(default)]
     pub fast_phase_end_sd_ms: Option<f64>,
+    /// The release fit that placed `latch_release_video_s` (video clock), for drawing and
+    /// checking it; `None` when no fit held.
+    #[serde(default)]
+    pub release_fit: Option<crate::detect::release::ReleaseFit>,
     pub loading_ms: Option<f64>,
     /// Standard uncertainty of `loading_ms`; named by the one rule `<measure>_sd_<unit>`.
     #[serde(rename = "loading_sd_ms", alias = "loading_ms_sd")]
@@ -306,6 +310,7 @@ impl TrialRecord {
             motion_peak_sd_ms: None,
             fast_phase_end_s: None,
             fast_phase_end_sd_ms: None,
+            release_fit: None,
             loading_ms: None,
             loading_ms_sd: None,
             release_ms: None,
@@ -438,6 +443,7 @@ pub fn measure(
                 record.motion_peak_sd_ms = Some(m.motion_peak_sd_s * 1e3);
                 record.fast_phase_end_s = Some(m.fast_phase_end_s);
                 record.fast_phase_end_sd_ms = Some(m.fast_phase_end_sd_s * 1e3);
+                record.release_fit = m.release_fit;
                 if let Some(click_s) = record.click_onset_s {
                     // The frame timing's share, and three standard uncertainties of the video
                     // release: a release the frames time poorly widens what counts as agreement.
@@ -577,6 +583,7 @@ mod tests {
                 release_rate_share: 0.0,
                 departure_s: 0.1,
                 earliest_release_s: 0.1,
+                release_fit: None,
             }),
             loading: Some(crate::detect::loading::LoadingOnset {
                 onset_s: 0.016,

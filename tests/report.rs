@@ -75,6 +75,14 @@ fn report_over_the_sample_data_links_a_figure_for_every_trial() {
         if record["oscillation"]["model"].is_array() {
             assert!(svg.contains("damped fit after the peak"), "{name}: fit");
         }
+        if record["release_fit"].is_object() {
+            assert!(
+                svg.contains("the release fit (orange"),
+                "{name}: release fit"
+            );
+            let fit = &record["release_fit"];
+            assert_eq!(fit["release_s"], record["latch_release_video_s"], "{name}");
+        }
         if record["loading_ms"].is_number() {
             assert!(svg.contains("(sd "), "{name}: uncertainty in the title");
         }

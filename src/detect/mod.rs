@@ -259,6 +259,7 @@ mod tests {
             release_rate_share: 0.0,
             departure_s: 0.1,
             earliest_release_s: 0.1,
+            release_fit: None,
         };
         let video = VideoEvents {
             clock: clock::FrameClock {

@@ -101,6 +101,38 @@ pub struct MotionEvents {
     /// as (t - t0)^3: extrapolated back from where the rate rises through 10 % and 40 % of its
     /// peak, (t40 - t0) / (t10 - t0) = 4^(1/3). Seconds, video clock.
     pub earliest_release_s: f64,
+    /// The release fit that placed `release_s`; `None` when the release is the rate's
+    /// crossing of `rate_fraction` of its peak (no fit held).
+    pub release_fit: Option<ReleaseFit>,
+}
+
+/// The least-squares fit that places a release: over the frames from `from_s` to `to_s`, the
+/// measure is level + slope (t - from_s) + size shape(t - release_s), the shape a spring-mass
+/// system let go from rest with damping ratio `damping_ratio` whose speed peaks at
+/// `speed_peak_s` (see [`spring_onset`]). Video clock, seconds; measure units.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+pub struct ReleaseFit {
+    pub from_s: f64,
+    pub to_s: f64,
+    pub release_s: f64,
+    pub speed_peak_s: f64,
+    pub damping_ratio: f64,
+    pub level: f64,
+    pub slope_per_s: f64,
+    pub size: f64,
+}
+
+impl ReleaseFit {
+    /// The fitted measure at `t_s`, video clock.
+    pub fn at(&self, t_s: f64) -> f64 {
+        let h_mid = self.speed_peak_s - self.release_s;
+        let shape = if h_mid > 0.0 {
+            ReleaseShape::new(h_mid, Form::Spring(self.damping_ratio)).at(t_s - self.release_s)
+        } else {
+            0.0
+        };
+        self.level + self.slope_per_s * (t_s - self.from_s) + self.size * shape
+    }
 }
 
 /// The release shapes tried: a spring-mass system let go from rest, damping ratio 0 (1 - cos),
@@ -275,6 +307,35 @@ impl<'a> OnsetWindow<'a> {
     /// Residual sum of squares of the linear fit y = a + b (t - t0) + A shape(t - tau) for a
     /// joint `tau`, time scale `h_mid` and damping ratio `zeta`: syy - c'v.
     fn sse_h(&self, tau: f64, h_mid: f64, form: Form) -> Option<f64> {
+        let (c, v) = self.solve(tau, h_mid, form)?;
+        Some((self.syy - c[0] * v[0] - c[1] * v[1] - c[2] * v[2]).max(0.0))
+    }
+
+    /// The fit at joint `tau` that placed it: the time scale the peak rate fixes, and the
+    /// shape with the least residual there.
+    fn fit_at(&self, tau: f64) -> Option<ReleaseFit> {
+        let h_mid = self.t_mid_s - tau;
+        let (form, _) = RELEASE_FORMS
+            .iter()
+            .filter_map(|&f| self.sse_h(tau, h_mid, f).map(|v| (f, v)))
+            .min_by(|a, b| a.1.total_cmp(&b.1))?;
+        let (c, _) = self.solve(tau, h_mid, form)?;
+        let Form::Spring(damping_ratio) = form;
+        Some(ReleaseFit {
+            from_s: self.t[0],
+            to_s: self.t[self.t.len() - 1],
+            release_s: tau,
+            speed_peak_s: self.t_mid_s,
+            damping_ratio,
+            level: c[0],
+            slope_per_s: c[1],
+            size: c[2],
+        })
+    }
+
+    /// Coefficients (level, slope, size) of the linear fit for a joint, time scale and shape,
+    /// and the right-hand side of its normal equations.
+    fn solve(&self, tau: f64, h_mid: f64, form: Form) -> Option<([f64; 3], [f64; 3])> {
         if h_mid <= 0.0 {
             return None;
         }
@@ -293,7 +354,7 @@ impl<'a> OnsetWindow<'a> {
         }
         (m[1][0], m[2][0], m[2][1]) = (m[0][1], m[0][2], m[1][2]);
         let c = super::solve_linear(m, v)?;
-        Some((self.syy - c[0] * v[0] - c[1] * v[1] - c[2] * v[2]).max(0.0))
+        Some((c, v))
     }
 
     /// The profile residual at tau, with the shape and the time scale h nuisance parameters:
@@ -809,6 +870,7 @@ pub fn detect_release(
         release_rate_share: start.rate_share,
         departure_s: start.departure_s,
         earliest_release_s: start.earliest_s,
+        release_fit: start.fit,
     })
 }
 
@@ -820,6 +882,7 @@ struct ReleaseStart {
     rate_share: f64,
     departure_s: f64,
     earliest_s: f64,
+    fit: Option<ReleaseFit>,
 }
 
 impl ReleaseStart {
@@ -872,7 +935,9 @@ impl ReleaseStart {
                 break;
             }
             if r > t[(fit_start + 2).min(n - 1)] {
-                fitted = Some((r, sd));
+                let fit =
+                    OnsetWindow::new(t, y, fit_start, fit_end, t_mid).and_then(|w| w.fit_at(r));
+                fitted = Some((r, sd, fit));
                 break;
             }
             // A joint on the window's guard: the window did not reach back to the held state.
@@ -882,8 +947,9 @@ impl ReleaseStart {
             fit_start = fit_start.saturating_sub(edge_frame.saturating_sub(fit_start).max(8));
         }
         let rate_noise = sigma * (2.0 / w as f64).sqrt() / (w as f64 * period);
+        let fit = fitted.and_then(|f| f.2);
         let (release_s, sd_s) = match fitted {
-            Some((r, sd)) => (r, sd.max(0.05 * period)),
+            Some((r, sd, _)) => (r, sd.max(0.05 * period)),
             None => {
                 let r = edge_crossing(&rates.rate[..=i_max], &rates.mid[..=i_max], s, peak, level)
                     .filter(|r| *r >= rates.mid[j.saturating_sub(1)] - 2.0 * w as f64 * period)
@@ -902,6 +968,7 @@ impl ReleaseStart {
             rate_share: (s * rates.rate[k] / peak).clamp(-1.0, 1.0),
             departure_s: rates.rise_crossing(i_max, s, level.max(4.0 * rate_noise)),
             earliest_s: gentlest_start_s(rates, i_max, s, rate_noise).min(release_s),
+            fit,
         })
     }
 }
@@ -1018,6 +1085,31 @@ mod tests {
         );
         assert!(ev.overshoot);
         assert_eq!(ev.direction, 1.0);
+    }
+
+    #[test]
+    fn the_release_fit_follows_the_frames_it_was_fitted_to_and_starts_at_the_release() {
+        let fps = 2000.0;
+        let (t, y) = trace(fps, 0.1003, 0.004);
+        let ev = detect_release(&t, &y, 1.0 / fps, 0.01, &ReleaseConfig::default()).unwrap();
+        let fit = ev.release_fit.expect("a clean release has a fit");
+        assert_eq!(fit.release_s, ev.release_s);
+        assert!(
+            fit.from_s < fit.release_s && fit.release_s < fit.to_s,
+            "{fit:?}"
+        );
+        // Held at 100 before the release; a 60-unit jump, so 1 % of it is 0.6.
+        for (&ti, &yi) in t
+            .iter()
+            .zip(&y)
+            .filter(|(ti, _)| (fit.from_s..=fit.to_s).contains(*ti))
+        {
+            assert!(
+                (fit.at(ti) - yi).abs() < 0.6,
+                "t {ti}: fit {} frame {yi}",
+                fit.at(ti)
+            );
+        }
     }
 
     #[test]

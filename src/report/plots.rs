@@ -522,10 +522,12 @@ fn release_panel(
         .map(|(t, v)| (to_ms(*t), *v))
         .collect();
     let fit = oscillation_curve(record, w0, w1);
-    let caption = if fit.is_empty() {
-        "Release close-up: frames (dots) and each event with its 95 % band"
-    } else {
-        "Release close-up: frames (dots), each event with its 95 % band, damped fit after the peak (line)"
+    let release_fit = release_curve(record, w0, w1);
+    let caption = match (release_fit.is_empty(), fit.is_empty()) {
+        (true, true) => "Release close-up: frames (dots) and each event with its 95 % band",
+        (true, false) => "Release close-up: frames (dots), each event with its 95 % band, damped fit after the peak (line)",
+        (false, true) => "Release close-up: frames (dots), each event with its 95 % band, the release fit (orange line)",
+        (false, false) => "Release close-up: frames (dots), each event with its 95 % band, the release fit (orange) and the damped fit after the peak (vermillion)",
     };
     let marks: Vec<Mark> = marks.iter().map(|m| m.on_axis(r, 1e3)).collect();
     let panel = Panel {
@@ -536,12 +538,33 @@ fn release_panel(
         y: bounds(pts.iter().map(|p| p.1)),
     };
     let fit: Vec<(f64, f64)> = fit.into_iter().map(|(t, v)| (to_ms(t), v)).collect();
+    let release_fit: Vec<(f64, f64)> = release_fit
+        .into_iter()
+        .map(|(t, v)| (to_ms(t), v))
+        .collect();
     event_panel(area, &panel, &marks, |chart| {
         chart.draw_series(LineSeries::new(pts.clone(), GREY.stroke_width(1)))?;
         chart.draw_series(pts.iter().map(|p| Circle::new(*p, 3, INK.filled())))?;
+        chart.draw_series(LineSeries::new(release_fit, ORANGE.stroke_width(2)))?;
         chart.draw_series(LineSeries::new(fit, VERMILLION.stroke_width(2)))?;
         Ok(())
     })
+}
+
+/// The release fit that placed the frames' release, over the frames it was fitted to within
+/// `from..until` (video clock); empty without a fit.
+fn release_curve(record: &TrialRecord, from: f64, until: f64) -> Vec<(f64, f64)> {
+    let Some(fit) = record.release_fit.as_ref() else {
+        return Vec::new();
+    };
+    let (a, b) = (fit.from_s.max(from), fit.to_s.min(until));
+    if b <= a {
+        return Vec::new();
+    }
+    (0..=300)
+        .map(|k| a + (b - a) * k as f64 / 300.0)
+        .map(|t| (t, fit.at(t)))
+        .collect()
 }
 
 /// The fitted damped oscillation from its start to `until` (video clock), clipped to start
