@@ -371,6 +371,22 @@ impl TrialRecord {
     }
 }
 
+/// Thumps from both searches, ascending: transients the click search found that are no clicks,
+/// and the low band's thumps ([`crate::detect::thump`]); one thump heard by both (onsets
+/// within 20 ms) is listed once, at the click search's onset.
+fn thumps(events: &AudioEvents) -> Vec<f64> {
+    let mut all: Vec<f64> = events.with_role(Role::Thump).map(|t| t.onset_s).collect();
+    let heard = all.clone();
+    all.extend(
+        events
+            .low_thumps_s
+            .iter()
+            .filter(|&&t| heard.iter().all(|h| (h - t).abs() > 0.02)),
+    );
+    all.sort_by(f64::total_cmp);
+    all
+}
+
 /// Fills `record` with the measures of the detected events.
 pub fn measure(
     record: &mut TrialRecord,
@@ -384,7 +400,7 @@ pub fn measure(
         record.audio_sample_rate_hz = Some(sample_rate_hz);
         record.clicks_s = Some(events.clicks().map(|c| c.onset_s).collect());
         let onsets = |role| Some(events.with_role(role).map(|t| t.onset_s).collect());
-        record.thumps_s = onsets(Role::Thump);
+        record.thumps_s = Some(thumps(events));
         record.ticks_s = onsets(Role::Tick);
         match events.main() {
             None => flags.push(Flag::NoClick),

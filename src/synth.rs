@@ -209,6 +209,9 @@ pub struct Truth {
     /// Latch-set ticks, audio clock, seconds: faint transients that are not clicks.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub ticks_s: Option<Vec<f64>>,
+    /// Starts of the handling thumps (40-90 Hz bursts), audio clock, seconds.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub thumps_s: Option<Vec<f64>>,
     /// The tick's peak over noise RMS, dB.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub tick_snr_db: Option<f64>,
@@ -300,6 +303,8 @@ struct AudioTrack {
     tick_snr_db: Option<f64>,
     /// Longest decay time constant of the main click's resonances, ms.
     click_decay_ms: f64,
+    /// Starts of the handling thumps, audio clock, seconds.
+    thumps_s: Vec<f64>,
 }
 
 /// A click's resonances: decay time constants drawn from `decay_s`, `len_s` long.
@@ -366,6 +371,7 @@ fn audio_track(
         ticks_s: Vec::new(),
         tick_snr_db: None,
         click_decay_ms: 0.0,
+        thumps_s: Vec::new(),
     };
     if kind.fires() {
         let click_s = rig.audio_time_s(plan.motion.release_s) + slip_s;
@@ -382,7 +388,7 @@ fn audio_track(
         .chain(&track.ticks_s)
         .copied()
         .collect();
-    add_thumps(&mut audio, fs, duration_s, &busy, rng);
+    track.thumps_s = add_thumps(&mut audio, fs, duration_s, &busy, rng);
     track.samples = to_channels(audio, config, &noise, rng);
     track
 }
@@ -507,8 +513,15 @@ fn add_tick(
 }
 
 /// Handling thumps (40-90 Hz bursts), kept 40 ms clear of clicks and ticks so the truth stays
-/// unambiguous.
-fn add_thumps(audio: &mut [f64], fs: f64, duration_s: f64, busy_s: &[f64], rng: &mut ChaCha8Rng) {
+/// unambiguous. Returns their starts, seconds.
+fn add_thumps(
+    audio: &mut [f64],
+    fs: f64,
+    duration_s: f64,
+    busy_s: &[f64],
+    rng: &mut ChaCha8Rng,
+) -> Vec<f64> {
+    let mut starts = Vec::new();
     for _ in 0..rng.gen_range(1..=2) {
         let at = rng.gen_range(0.02..(duration_s - 0.08).max(0.03));
         if busy_s.iter().any(|c| at < c + 0.04 && at + 0.06 > c - 0.04) {
@@ -524,7 +537,10 @@ fn add_thumps(audio: &mut [f64], fs: f64, duration_s: f64, busy_s: &[f64], rng: 
             let w = 0.5 - 0.5 * (2.0 * PI * u).cos();
             *v += a * w * (2.0 * PI * f * j as f64 / fs).sin();
         }
+        starts.push(start as f64 / fs);
     }
+    starts.sort_by(f64::total_cmp);
+    starts
 }
 
 /// Clamps to the encoding's full scale and interleaves further channels: a second microphone,
@@ -609,6 +625,7 @@ fn truth_of(
         ticks_s: (new && has_audio && !sound.ticks_s.is_empty()).then(|| sound.ticks_s.clone()),
         tick_snr_db: sound.tick_snr_db.filter(|_| new && has_audio),
         click_decay_ms: (new && has_audio && fires).then_some(sound.click_decay_ms),
+        thumps_s: has_audio.then(|| sound.thumps_s.clone()),
     }
 }
 

@@ -17,6 +17,7 @@ pub mod loading;
 pub mod oscillation;
 pub mod phases;
 pub mod release;
+pub mod thump;
 pub mod trace;
 
 /// Scale from median absolute deviation to standard deviation for Gaussian noise.
@@ -392,6 +393,8 @@ pub struct AudioEvents {
     pub main_click: Option<usize>,
     /// Robust noise standard deviation of the high-passed audio (1.0 = full scale).
     pub noise_sigma: f64,
+    /// Low-frequency thumps the click search does not hear ([`thump`]), audio clock, seconds.
+    pub low_thumps_s: Vec<f64>,
 }
 
 impl AudioEvents {
@@ -482,10 +485,19 @@ pub fn detect_coded_audio(
         ..click::ClickConfig::from(rig)
     };
     let report = click::detect_clicks(signal, &config, scratch, expected.as_ref());
+    // A loud click carries some low-frequency energy of its own: no thump starts inside one.
+    let clicks: Vec<(f64, f64)> = report
+        .transients
+        .iter()
+        .filter(|t| t.is_click)
+        .map(|t| (t.onset_s - 5e-3, t.onset_s + t.duration_ms * 1e-3 + 5e-3))
+        .collect();
+    let low_thumps_s = thump::detect_thumps(signal, &clicks, &thump::ThumpConfig::default());
     AudioEvents {
         transients: report.transients,
         main_click: report.main,
         noise_sigma: report.noise_sigma,
+        low_thumps_s,
     }
 }
 
