@@ -160,35 +160,25 @@ fn runs_above(energy: &[f64], level: f64) -> Vec<(usize, usize)> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use rand::SeedableRng;
-    use rand_distr::{Distribution, Normal};
     use std::f64::consts::PI;
 
     /// One second at 48 kHz: noise at -60 dBFS, mains hum at -40 dBFS, and a 60 Hz thump of
     /// 40 ms (Hann envelope, peak -20 dBFS) at `thump_s`.
     fn signal(thump_s: Option<f64>) -> AudioSignal {
         let fs = 48_000.0;
-        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
-        let noise = Normal::new(0.0, 1e-3).unwrap();
-        let mut samples: Vec<f64> = (0..48_000)
-            .map(|i| noise.sample(&mut rng) + 0.01 * (2.0 * PI * 50.0 * i as f64 / fs).sin())
-            .collect();
+        let mut signal = crate::detect::click::tests::noise_signal(fs, 1.0, 1e-3, 3);
+        for (i, v) in signal.samples.iter_mut().enumerate() {
+            *v += 0.01 * (2.0 * PI * 50.0 * i as f64 / fs).sin();
+        }
         if let Some(at) = thump_s {
             let (start, len) = ((at * fs) as usize, (0.04 * fs) as usize);
             for j in 0..len {
                 let u = j as f64 / len as f64;
                 let w = 0.5 - 0.5 * (2.0 * PI * u).cos();
-                samples[start + j] += 0.1 * w * (2.0 * PI * 60.0 * j as f64 / fs).sin();
+                signal.samples[start + j] += 0.1 * w * (2.0 * PI * 60.0 * j as f64 / fs).sin();
             }
         }
-        AudioSignal {
-            samples,
-            sample_rate_hz: fs,
-            channels: 1,
-            channel: 0,
-            clip_level: 1.0,
-            bits_per_sample: None,
-        }
+        signal
     }
 
     #[test]
