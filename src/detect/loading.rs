@@ -417,13 +417,14 @@ impl Bins {
         let n = candidates.len();
         let mut profile: Vec<Candidate> = vec![None; n];
         let mut done = vec![false; n];
+        let mut scratch = StartScratch::default();
         let mut todo: Vec<usize> = (0..n).step_by(SPARSE_STRIDE).collect();
         todo.extend(n.checked_sub(1));
         while !todo.is_empty() {
             for &k in &todo {
                 if !done[k] {
                     let tau = candidates[k];
-                    profile[k] = self.best_start(tau, t_end - tau, den, shapes);
+                    profile[k] = self.best_start(tau, t_end - tau, den, shapes, &mut scratch);
                     done[k] = true;
                 }
             }
@@ -442,7 +443,14 @@ impl Bins {
     }
 
     /// The least-squares start from `tau` over the exponent grid and the ramp lengths.
-    fn best_start(&self, tau: f64, span: f64, den: usize, shapes: Shapes) -> Candidate {
+    fn best_start(
+        &self,
+        tau: f64,
+        span: f64,
+        den: usize,
+        shapes: Shapes,
+        scratch: &mut StartScratch,
+    ) -> Candidate {
         let steps = (shapes.p_max - 1) * den + 1;
         let roots_count = den.trailing_zeros() as usize;
         let (bt, by, bw) = (&self.t, &self.y, &self.w);
@@ -466,14 +474,26 @@ impl Bins {
         let power = |s: usize| 1.0 + s as f64 / den as f64;
         // Past a ramp's end x = ramp^p + p ramp^(p - 1) (h - ramp): the two terms per ramp and
         // exponent (unused for the ramp that never ends).
-        let mut past: Vec<(f64, f64)> = vec![(0.0, 0.0); ramps.len() * steps];
-        let (mut root_powers, mut x) = (vec![1.0; den], vec![0.0; steps]);
+        let StartScratch {
+            past,
+            head,
+            tail,
+            acc,
+            sums,
+            x,
+            root_powers,
+            levels,
+        } = scratch;
+        let past = sized(past, ramps.len() * steps, (0.0, 0.0));
+        let x = sized(x, steps, 0.0);
+        let root_powers = sized(root_powers, den, 1.0);
+        root_powers[0] = 1.0;
         for (r, &ramp) in ramps.iter().enumerate().filter(|(_, r)| r.is_finite()) {
             let mut roots = [ramp; 8];
             for j in 1..=roots_count {
                 roots[j] = roots[j - 1].sqrt();
             }
-            fill_powers(&mut x, &mut root_powers, ramp, &roots[1..=roots_count]);
+            fill_powers(x, root_powers, ramp, &roots[1..=roots_count]);
             for (s, &rp) in x.iter().enumerate() {
                 past[r * steps + s] = (rp, power(s) * rp / ramp);
             }
@@ -489,23 +509,19 @@ impl Bins {
             .iter()
             .map(|&r| bt[first..].partition_point(|&t| t - tau <= r))
             .collect();
-        let head = head_sums(
-            &bt[first..],
-            &by[first..],
-            &bw[first..],
-            tau,
-            den,
-            steps,
-            &ends,
-        );
-        let mut tail = vec![[0.0f64; 5]; m + 1];
+        let bins_after = (&bt[first..], &by[first..], &bw[first..]);
+        let head = sized(head, ends.len() * steps, [0.0; 3]);
+        let buffers = (&mut *sums, &mut *x, &mut *root_powers, &mut *levels);
+        head_sums(bins_after, tau, den, &ends, head, buffers);
+        let tail = sized(tail, m + 1, [0.0; 5]);
+        tail[m] = [0.0; 5];
         for k in (0..m).rev() {
             let j = first + k;
             let (h, w, wy) = (bt[j] - tau, bw[j], bw[j] * by[j]);
             let [t0, t1, t2, u0, u1] = tail[k + 1];
             tail[k] = [t0 + w, t1 + w * h, t2 + w * h * h, u0 + wy, u1 + wy * h];
         }
-        let mut acc = vec![[0.0f64; 3]; ramps.len() * cols];
+        let acc = sized(acc, ramps.len() * cols, [0.0; 3]);
         for (r, &ramp) in ramps.iter().enumerate() {
             let kr = ends[r];
             let [t0, t1, t2, u0, u1] = tail[kr];
@@ -590,28 +606,35 @@ fn fill_powers(x: &mut [f64], root_powers: &mut [f64], h: f64, roots: &[f64]) {
 }
 
 /// Running sums of w x, w x^2 and w y x with x = h^p, h = t - `tau`, over the first `ends[r]`
-/// bins for each r, for the exponents p = 1 + s / `den`, s < `steps`: entry r * steps + s.
-/// The roots h^(1/2), h^(1/4) ... h^(1/den) are taken bin-wise a level at a time, and each
-/// bin's powers h^(1 + q + i / den) are products of them, so no long chain of dependent
-/// operations runs per bin and the sums run as plain loops over the exponents.
+/// of the bins `(t, y, w)` for each r, for the exponents p = 1 + s / `den`, s < steps, written
+/// to `head` (entry r * steps + s; steps = head.len() / ends.len()). The roots h^(1/2),
+/// h^(1/4) ... h^(1/den) are taken bin-wise a level at a time, and each bin's powers
+/// h^(1 + q + i / den) are products of them, so no long chain of dependent operations runs
+/// per bin and the sums run as plain loops over the exponents. `buffers` (sums, powers, root
+/// powers, root levels) are work space, reused from candidate to candidate.
 fn head_sums(
-    bt: &[f64],
-    by: &[f64],
-    bw: &[f64],
+    (bt, by, bw): (&[f64], &[f64], &[f64]),
     tau: f64,
     den: usize,
-    steps: usize,
     ends: &[usize],
-) -> Vec<[f64; 3]> {
-    let h: Vec<f64> = bt.iter().map(|t| t - tau).collect();
-    let mut levels: Vec<Vec<f64>> = Vec::new();
-    for _ in 0..den.trailing_zeros() {
-        let last = levels.last().unwrap_or(&h);
-        levels.push(last.iter().map(|v| v.sqrt()).collect());
+    head: &mut [[f64; 3]],
+    buffers: HeadBuffers,
+) {
+    let (sums, x, root_powers, levels) = buffers;
+    let steps = x.len();
+    let depth = den.trailing_zeros() as usize;
+    levels.resize_with(depth + 1, Vec::new);
+    levels[0].clear();
+    levels[0].extend(bt.iter().map(|t| t - tau));
+    for j in 0..depth {
+        let (done, rest) = levels.split_at_mut(j + 1);
+        rest[0].clear();
+        rest[0].extend(done[j].iter().map(|v| v.sqrt()));
     }
-    let (mut sx, mut sxx, mut syx) = (vec![0.0; steps], vec![0.0; steps], vec![0.0; steps]);
-    let (mut root_powers, mut x) = (vec![1.0; den], vec![0.0; steps]);
-    let mut head = vec![[0.0f64; 3]; ends.len() * steps];
+    let sums = sized(sums, 3 * steps, 0.0);
+    sums.fill(0.0);
+    let (sx, rest) = sums.split_at_mut(steps);
+    let (sxx, syx) = rest.split_at_mut(steps);
     let mut keep = |k: usize, sx: &[f64], sxx: &[f64], syx: &[f64]| {
         for (r, _) in ends.iter().enumerate().filter(|(_, &e)| e == k) {
             for s in 0..steps {
@@ -620,12 +643,12 @@ fn head_sums(
         }
     };
     for k in 0..bt.len() {
-        keep(k, &sx, &sxx, &syx);
+        keep(k, sx, sxx, syx);
         let mut roots = [0.0; 8];
-        for (root, level) in roots.iter_mut().zip(&levels) {
+        for (root, level) in roots.iter_mut().zip(&levels[1..]) {
             *root = level[k];
         }
-        fill_powers(&mut x, &mut root_powers, h[k], &roots[..levels.len()]);
+        fill_powers(x, root_powers, levels[0][k], &roots[..depth]);
         let (w, wy) = (bw[k], bw[k] * by[k]);
         for s in 0..steps {
             let v = x[s];
@@ -634,8 +657,38 @@ fn head_sums(
             syx[s] += wy * v;
         }
     }
-    keep(bt.len(), &sx, &sxx, &syx);
-    head
+    keep(bt.len(), sx, sxx, syx);
+}
+
+/// Work space of [`head_sums`]: the three running sums, the powers, the root powers and the
+/// root levels.
+type HeadBuffers<'a> = (
+    &'a mut Vec<f64>,
+    &'a mut [f64],
+    &'a mut [f64],
+    &'a mut Vec<Vec<f64>>,
+);
+
+/// The first `n` entries of `v`, grown with `fill` when shorter: work space reused without
+/// clearing (the caller writes what it reads).
+fn sized<T: Copy>(v: &mut Vec<T>, n: usize, fill: T) -> &mut [T] {
+    if v.len() < n {
+        v.resize(n, fill);
+    }
+    &mut v[..n]
+}
+
+/// Work space of [`Bins::best_start`], kept across the candidates of one profile.
+#[derive(Default)]
+struct StartScratch {
+    past: Vec<(f64, f64)>,
+    head: Vec<[f64; 3]>,
+    tail: Vec<[f64; 5]>,
+    acc: Vec<[f64; 3]>,
+    sums: Vec<f64>,
+    x: Vec<f64>,
+    root_powers: Vec<f64>,
+    levels: Vec<Vec<f64>>,
 }
 
 /// Variance inflation of a residual series whose noise is correlated (a slow wander of the
