@@ -4,8 +4,9 @@
 //!
 //! Every record is written atomically as soon as its trial is done, so a killed run leaves
 //! only complete records. A trial is skipped on a re-run when its record was made from the same
-//! input bytes, the same effective settings and the same tool version (SHA-256 of each, stored
-//! in the record); when only its group or input paths changed, the record is rewritten with
+//! input bytes, the same effective settings and the same tool version (BLAKE3 of each, stored
+//! in the record; a record holding the SHA-256 of earlier versions never matches, so it is
+//! recomputed once); when only its group or input paths changed, the record is rewritten with
 //! them without a new analysis. Records of trials no longer in the campaign are moved to
 //! `trials/stale/`. A trial whose inputs cannot be read keeps its earlier good record. The
 //! first failed write stops the run: trials in flight finish, no new one starts.
@@ -88,17 +89,20 @@ pub struct BatchOutcome {
     pub run_file: String,
 }
 
-/// Lower-case hex SHA-256 of `bytes`.
-pub fn sha256_hex(bytes: &[u8]) -> String {
-    format!("{:x}", Sha256::digest(bytes))
+/// Lower-case hex BLAKE3 of `bytes`: a cryptographic hash (so a changed input cannot pass for
+/// the old one by accident or design) at several times SHA-256's speed.
+pub fn blake3_hex(bytes: &[u8]) -> String {
+    blake3::hash(bytes).to_hex().to_string()
 }
 
-/// SHA-256 of the effective settings (the rig profile after command-line overrides).
+/// BLAKE3 of the effective settings (the rig profile after command-line overrides).
 pub fn settings_hash(rig: &RigProfile) -> String {
-    sha256_hex(serde_json::to_string(rig).unwrap_or_default().as_bytes())
+    blake3_hex(serde_json::to_string(rig).unwrap_or_default().as_bytes())
 }
 
-/// Whether `name` falls in shard `k` of `n` (1-based): stable under adding other trials.
+/// Whether `name` falls in shard `k` of `n` (1-based): stable under adding other trials, and
+/// across versions (SHA-256 of the name, as since sharding began; a name is short, so the
+/// hash's speed does not matter here).
 pub fn in_shard(name: &str, k: u64, n: u64) -> bool {
     let digest = Sha256::digest(name.as_bytes());
     let mut head = [0u8; 8];
@@ -259,7 +263,7 @@ pub fn run(
         invocation: config.invocation.clone(),
         shard: config.shard,
         settings: config.rig.clone(),
-        settings_sha256: settings.clone(),
+        settings_blake3: settings.clone(),
         host: lock::host_name(),
         pid: std::process::id(),
         started: lock::now_rfc3339(),
@@ -427,9 +431,9 @@ fn process(
     };
     let provenance = Provenance {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
-        audio_sha256: inputs.audio.as_deref().map(sha256_hex),
-        frames_sha256: inputs.frames.as_deref().map(sha256_hex),
-        settings_sha256: settings.to_string(),
+        audio_blake3: inputs.audio.as_deref().map(blake3_hex),
+        frames_blake3: inputs.frames.as_deref().map(blake3_hex),
+        settings_blake3: settings.to_string(),
     };
     let (audio_file, frames_file) = (path_string(&spec.audio), path_string(&spec.frames));
     let same_manifest = |r: &TrialRecord| {
