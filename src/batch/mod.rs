@@ -3,7 +3,8 @@
 //! with one set of settings, and has one writer at a time ([`lock`]).
 //!
 //! Every record is written atomically as soon as its trial is done, so a killed run leaves
-//! only complete records. A trial is skipped on a re-run when its record was made from the same
+//! only complete records; the disk is flushed once per group of records ([`atomic::GroupSync`]:
+//! a power cut loses at most the last group, which the next run recomputes). A trial is skipped on a re-run when its record was made from the same
 //! input bytes, the same effective settings and the same tool version (BLAKE3 of each, stored
 //! in the record; a record holding the SHA-256 of earlier versions never matches, so it is
 //! recomputed once); when only its group or input paths changed, the record is rewritten with
@@ -311,13 +312,14 @@ pub fn run(
         .map_err(|e| Error::Usage(format!("cannot start {jobs} worker threads: {e}")))?;
     let stop = AtomicBool::new(false);
     let first_error: Mutex<Option<Error>> = Mutex::new(None);
+    let writer = atomic::GroupSync::new(&dir);
     let results: Vec<(usize, Done)> = pool.install(|| {
         mine.par_iter()
             .map_init(Scratch::default, |scratch, &i| {
                 if stop.load(Ordering::SeqCst) {
                     return (i, Done::NotStarted);
                 }
-                match process(&trials[i], config, &settings, &dir, scratch) {
+                match process(&trials[i], config, &settings, &writer, scratch) {
                     Ok(done) => {
                         let reused = !matches!(done.outcome, TrialOutcome::Analysed);
                         progress.trial_done(&done.record, reused);
@@ -336,6 +338,7 @@ pub fn run(
             .collect()
     });
     progress.finish();
+    let flushed = writer.finish();
     let mut outcome = BatchOutcome {
         stale,
         run_file: runfile::run_file_name(config.shard),
@@ -376,7 +379,7 @@ pub fn run(
             }
         }
     }
-    outcome.stopped = first_error.into_inner().ok().flatten();
+    outcome.stopped = first_error.into_inner().ok().flatten().or(flushed.err());
     run.counts = outcome.counts.clone();
     run.stale = outcome.stale.clone();
     if let Some(e) = &outcome.stopped {
@@ -412,11 +415,11 @@ fn process(
     trial: &Discovered,
     config: &BatchConfig,
     settings: &str,
-    dir: &Path,
+    writer: &atomic::GroupSync,
     scratch: &mut Scratch,
 ) -> Result<Processed> {
     let spec = &trial.spec;
-    let path = dir.join(record_file_name(&spec.name));
+    let path = writer.dir().join(record_file_name(&spec.name));
     let existing = read_record(&path).filter(|r| r.trial == spec.name);
     let problem = trial
         .problem
@@ -463,7 +466,7 @@ fn process(
                 record.group = spec.group.clone();
                 record.audio_file = audio_file;
                 record.frames_file = frames_file;
-                atomic::write_atomic(&path, report::json::record_json(&record).as_bytes())?;
+                writer.write(&path, report::json::record_json(&record).as_bytes())?;
                 return Ok(done(record, TrialOutcome::Rewritten));
             }
             _ => {}
@@ -507,7 +510,7 @@ fn process(
     if unchanged {
         return Ok(done(record, TrialOutcome::Reused));
     }
-    atomic::write_atomic(&path, text.as_bytes())?;
+    writer.write(&path, text.as_bytes())?;
     Ok(done(record, TrialOutcome::Analysed))
 }
 
