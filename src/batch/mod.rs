@@ -388,11 +388,12 @@ pub fn run(
         let _ = runfile::write(out, &run);
         return Ok(outcome);
     }
-    outcome.tables = {
+    // In the pool, so that the tables' bootstraps use the workers asked for, no more.
+    outcome.tables = pool.install(|| {
         let _tables = lock::tables_lock(out)?;
         let records = CampaignRecords::of_run(out, &run);
-        tables::write_tables(out, &records, config.shard.is_some())?
-    };
+        tables::write_tables(out, &records, config.shard.is_some())
+    })?;
     run.finished = Some(lock::now_rfc3339());
     runfile::write(out, &run)?;
     Ok(outcome)

@@ -111,7 +111,12 @@ pub fn stats(values: &[f64]) -> Option<Stats> {
 #[derive(Debug, Default)]
 pub struct GroupTable {
     groups: BTreeMap<String, Accumulator>,
+    /// Each group's statistics per measure, once [`GroupTable::compute_stats`] ran.
+    stats: Option<GroupStats>,
 }
+
+/// Each group's [`Stats`] per measure (in [`METRICS`] order), by group name.
+pub type GroupStats = BTreeMap<String, Vec<Option<Stats>>>;
 
 #[derive(Debug, Default)]
 struct Accumulator {
@@ -155,6 +160,40 @@ impl GroupTable {
             .add(r);
     }
 
+    /// Computes every group's statistics, each distinct sample once: with no groups, the row
+    /// over all trials holds the same values as the one group, and its bootstrap is not run
+    /// again. `run` maps the distinct samples to their [`stats`], in order; the caller chooses
+    /// whether in parallel (the samples are independent). [`GroupTable::rows`] then uses them.
+    pub fn compute_stats(&mut self, run: impl FnOnce(&[&[f64]]) -> Vec<Option<Stats>>) {
+        self.stats = Some(self.stats_of_groups(run));
+    }
+
+    fn stats_of_groups(&self, run: impl FnOnce(&[&[f64]]) -> Vec<Option<Stats>>) -> GroupStats {
+        let mut distinct: Vec<&[f64]> = Vec::new();
+        let mut index: BTreeMap<&str, Vec<usize>> = BTreeMap::new();
+        for (g, a) in &self.groups {
+            let at = a
+                .values
+                .iter()
+                .map(|v| match distinct.iter().position(|d| *d == &v[..]) {
+                    Some(k) => k,
+                    None => {
+                        distinct.push(v);
+                        distinct.len() - 1
+                    }
+                });
+            index.insert(g, at.collect());
+        }
+        let computed = run(&distinct);
+        index
+            .into_iter()
+            .map(|(g, at)| {
+                let row = at.iter().map(|&k| computed.get(k).cloned().flatten());
+                (g.to_string(), row.collect())
+            })
+            .collect()
+    }
+
     /// Column names of `groups.csv`.
     pub fn header() -> Vec<String> {
         let mut h: Vec<String> = ["group", "trials", "ok", "flagged", "error"]
@@ -189,6 +228,14 @@ impl GroupTable {
                 String::new()
             }
         };
+        let computed;
+        let stats_by_group = match &self.stats {
+            Some(s) => s,
+            None => {
+                computed = self.stats_of_groups(|d| d.iter().map(|v| stats(v)).collect());
+                &computed
+            }
+        };
         let mut order: Vec<&String> = self.groups.keys().filter(|g| *g != ALL_GROUPS).collect();
         order.extend(self.groups.keys().filter(|g| *g == ALL_GROUPS));
         order
@@ -198,8 +245,8 @@ impl GroupTable {
                 let mut row = vec![g.clone(), a.trials.to_string()];
                 row.extend(a.status.iter().map(|c| c.to_string()));
                 row.extend(a.flags.iter().map(|c| c.to_string()));
-                for values in &a.values {
-                    match stats(values) {
+                for s in stats_by_group.get(g).into_iter().flatten() {
+                    match s {
                         Some(s) => row.extend([
                             s.n.to_string(),
                             fmt(s.mean),
@@ -271,6 +318,27 @@ mod tests {
             ((s.ci_high - s.ci_low) / 2.0 - half).abs() < 0.15 * half,
             "{s:?}"
         );
+    }
+
+    #[test]
+    fn each_distinct_sample_is_bootstrapped_once_and_rows_do_not_change() {
+        let mut t = GroupTable::default();
+        for (i, v) in [80.0, 95.0, 70.0].into_iter().enumerate() {
+            let mut r = TrialRecord::empty(&format!("t{i}"), None);
+            r.loading_ms = Some(v);
+            r.release_ms = Some(v / 10.0);
+            t.add(&r);
+        }
+        let serial = t.rows();
+        let mut samples = 0;
+        t.compute_stats(|d| {
+            samples = d.len();
+            d.iter().map(|v| stats(v)).collect()
+        });
+        // Groups "(none)" and "(all)" hold the same values: 5 measures, of which 3 are empty
+        // and alike, so loading_ms, release_ms and the empty sample.
+        assert_eq!(samples, 3);
+        assert_eq!(t.rows(), serial);
     }
 
     #[test]
