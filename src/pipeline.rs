@@ -25,10 +25,17 @@ pub struct TrialInputs {
     pub frames: Option<Vec<u8>>,
 }
 
-/// Per-worker reusable state (FFT plans, buffers).
+/// Per-worker reusable state (FFT plans, buffers). The large buffers (the inputs' bytes, the
+/// decoded samples) keep their memory from trial to trial, so a worker going through long
+/// recordings does not map and fault in fresh pages for each; none of their content carries
+/// over.
 #[derive(Default)]
 pub struct Scratch {
     pub click: ClickScratch,
+    /// Memory for the decoded channel of the next WAV file.
+    samples: Vec<f64>,
+    /// Memory for the next trial's input bytes ([`read_inputs_into`]).
+    pub inputs: TrialInputs,
 }
 
 /// Largest input file read, bytes (4 GiB, the size limit of a plain WAV file). Larger files
@@ -43,7 +50,20 @@ pub const MAX_INPUT_BYTES: u64 = 4 << 30;
 /// With `follow_symlinks` false a symbolic link is refused as well. OS errors (missing file,
 /// no permission, I/O) are [`Error::Io`]; refusals are [`Error::Malformed`].
 pub fn read_bounded(path: &Path, limit_bytes: u64, follow_symlinks: bool) -> Result<Vec<u8>> {
+    let mut bytes = Vec::new();
+    read_bounded_into(path, limit_bytes, follow_symlinks, &mut bytes)?;
+    Ok(bytes)
+}
+
+/// As [`read_bounded`], into `bytes` (replacing what it held, keeping its memory).
+pub fn read_bounded_into(
+    path: &Path,
+    limit_bytes: u64,
+    follow_symlinks: bool,
+    bytes: &mut Vec<u8>,
+) -> Result<()> {
     use std::io::Read;
+    bytes.clear();
     let meta = if follow_symlinks {
         std::fs::metadata(path)
     } else {
@@ -62,15 +82,16 @@ pub fn read_bounded(path: &Path, limit_bytes: u64, follow_symlinks: bool) -> Res
     let file = options.open(path).map_err(|e| Error::io(path, e))?;
     let meta = file.metadata().map_err(|e| Error::io(path, e))?;
     refuse_irregular(path, &meta, limit_bytes)?;
-    let mut bytes = Vec::with_capacity(usize::try_from(meta.len()).unwrap_or(0));
+    // Room for one byte more than the file: reading to the end then needs no second buffer.
+    bytes.reserve_exact(usize::try_from(meta.len()).unwrap_or(0).saturating_add(1));
     // One byte past the limit tells a file that grew while being read.
     file.take(limit_bytes.saturating_add(1))
-        .read_to_end(&mut bytes)
+        .read_to_end(bytes)
         .map_err(|e| Error::io(path, e))?;
     if bytes.len() as u64 > limit_bytes {
         return Err(too_large(path, limit_bytes));
     }
-    Ok(bytes)
+    Ok(())
 }
 
 /// What kind of file `meta` describes, for messages.
@@ -130,16 +151,37 @@ pub fn read_input(path: &Path) -> Result<Vec<u8>> {
 
 /// Reads the files a trial names.
 pub fn read_inputs(spec: &TrialSpec) -> Result<TrialInputs> {
+    let mut inputs = TrialInputs::default();
+    read_inputs_into(spec, &mut inputs)?;
+    Ok(inputs)
+}
+
+/// Reads the files a trial names into `inputs`, reusing its buffers' memory. On an error
+/// `inputs` holds nothing.
+pub fn read_inputs_into(spec: &TrialSpec, inputs: &mut TrialInputs) -> Result<()> {
     if spec.audio.is_none() && spec.frames.is_none() {
+        *inputs = TrialInputs::default();
         return Err(Error::Usage(format!(
             "trial {}: neither an audio file nor a frames file is given",
             spec.name
         )));
     }
-    Ok(TrialInputs {
-        audio: spec.audio.as_deref().map(read_input).transpose()?,
-        frames: spec.frames.as_deref().map(read_input).transpose()?,
-    })
+    let read = |path: &Option<PathBuf>, slot: &mut Option<Vec<u8>>| -> Result<()> {
+        let Some(path) = path else {
+            *slot = None;
+            return Ok(());
+        };
+        let mut bytes = slot.take().unwrap_or_default();
+        read_bounded_into(path, MAX_INPUT_BYTES, true, &mut bytes)?;
+        *slot = Some(bytes);
+        Ok(())
+    };
+    let result =
+        read(&spec.audio, &mut inputs.audio).and_then(|()| read(&spec.frames, &mut inputs.frames));
+    if result.is_err() {
+        *inputs = TrialInputs::default();
+    }
+    result
 }
 
 fn path_string(p: &Option<PathBuf>) -> Option<String> {
@@ -176,11 +218,11 @@ fn try_analyze(
         rig.audio_channel
     };
     let audio = match (&spec.audio, &inputs.audio) {
-        (Some(path), Some(bytes)) => Some((
-            path,
-            bytes,
-            decode::decode_audio_with_info(path, bytes, first_channel)?,
-        )),
+        (Some(path), Some(bytes)) => {
+            let buffer = std::mem::take(&mut scratch.samples);
+            let decoded = decode::decode_audio_reusing(path, bytes, first_channel, buffer)?;
+            Some((path, bytes, decoded))
+        }
         _ => None,
     };
     let frames = match (&spec.frames, &inputs.frames) {
@@ -226,6 +268,9 @@ fn try_analyze(
         if f.input.dropped_rows > 0 {
             record.add_flags([Flag::FramesDroppedCells]);
         }
+    }
+    if let Some(a) = audio {
+        scratch.samples = a.decoded.signal.samples;
     }
     Ok(record)
 }

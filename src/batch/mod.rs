@@ -412,12 +412,28 @@ struct Processed {
     note: Option<String>,
 }
 
+/// One trial: its record reused, rewritten, kept or made anew. The inputs are read into the
+/// worker's buffers, which go back to it whatever happens.
 fn process(
     trial: &Discovered,
     config: &BatchConfig,
     settings: &str,
     writer: &atomic::GroupSync,
     scratch: &mut Scratch,
+) -> Result<Processed> {
+    let mut inputs = std::mem::take(&mut scratch.inputs);
+    let processed = process_with(trial, config, settings, writer, scratch, &mut inputs);
+    scratch.inputs = inputs;
+    processed
+}
+
+fn process_with(
+    trial: &Discovered,
+    config: &BatchConfig,
+    settings: &str,
+    writer: &atomic::GroupSync,
+    scratch: &mut Scratch,
+    inputs: &mut TrialInputs,
 ) -> Result<Processed> {
     let spec = &trial.spec;
     let path = writer.dir().join(record_file_name(&spec.name));
@@ -426,12 +442,12 @@ fn process(
         .problem
         .clone()
         .or_else(|| discover::check_name(&spec.name).err());
-    let (inputs, read_error) = match problem {
-        Some(p) => (TrialInputs::default(), Some(Error::Usage(p))),
-        None => match pipeline::read_inputs(spec) {
-            Ok(inputs) => (inputs, None),
-            Err(e) => (TrialInputs::default(), Some(e)),
-        },
+    let read_error = match problem {
+        Some(p) => {
+            *inputs = TrialInputs::default();
+            Some(Error::Usage(p))
+        }
+        None => pipeline::read_inputs_into(spec, inputs).err(),
     };
     let provenance = Provenance {
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
@@ -486,7 +502,7 @@ fn process(
         }
         None => {
             let analysed = std::panic::catch_unwind(AssertUnwindSafe(|| {
-                pipeline::analyze(spec, &inputs, &config.rig, scratch)
+                pipeline::analyze(spec, inputs, &config.rig, scratch)
             }));
             analysed.unwrap_or_else(|panic| {
                 let what = crate::error::panic_message(panic.as_ref());

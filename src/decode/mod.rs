@@ -8,7 +8,9 @@ pub mod frames;
 mod mp4;
 mod wav;
 
-pub use audio::{decode_audio, decode_audio_with_info, AudioInfo, DecodedAudio};
+pub use audio::{
+    decode_audio, decode_audio_reusing, decode_audio_with_info, AudioInfo, DecodedAudio,
+};
 pub use frames::{decode_frames, FrameOptions};
 
 use std::path::Path;

@@ -371,20 +371,49 @@ fn next_chunk(body: usize, size: u64) -> Option<usize> {
     body.checked_add(usize::try_from(padded).ok()?)
 }
 
-/// Channel `channel` of the samples, full scale 1.0 (integers divided by 2^(container bits -
-/// 1), unsigned 8-bit offset by 128, G.711 through its 16-bit expansion, as libsndfile does).
-pub(crate) fn channel_samples(layout: &WavLayout, bytes: &[u8], channel: usize) -> Vec<f64> {
+/// Channel `channel` of the samples into `out` (replacing what it held, keeping its memory),
+/// full scale 1.0 (integers divided by 2^(container bits - 1), unsigned 8-bit offset by 128,
+/// G.711 through its 16-bit expansion, as libsndfile does). Returns whether every sample is
+/// finite: integer codes always are, and float samples are checked in the same pass.
+pub(crate) fn channel_samples(
+    layout: &WavLayout,
+    bytes: &[u8],
+    channel: usize,
+    out: &mut Vec<f64>,
+) -> bool {
     let width = layout.encoding.bytes();
     let frame_bytes = layout.frame_bytes();
     let data = &bytes[layout.data_start..layout.data_start + layout.frames * frame_bytes];
     let be = layout.big_endian;
+    out.clear();
+    out.reserve_exact(layout.frames);
     // Scales are powers of two, so multiplying by their inverse is exact (and a division per
     // sample costs as much as the rest of the decoding).
     // A macro, not a closure taking a closure: each arm's conversion is inlined into its loop.
     macro_rules! samples {
-        ($f:expr) => {
-            collect(data, width, frame_bytes, channel, $f)
-        };
+        ($f:expr) => {{
+            collect(data, width, frame_bytes, channel, $f, out);
+            true
+        }};
+    }
+    // Floats: the finiteness test rides in the decoding loop (an OR of flags, no branch).
+    let mut finite = true;
+    macro_rules! floats {
+        ($f:expr) => {{
+            collect(
+                data,
+                width,
+                frame_bytes,
+                channel,
+                |b| {
+                    let v = $f(b);
+                    finite &= v.is_finite();
+                    v
+                },
+                out,
+            );
+            finite
+        }};
     }
     match (layout.encoding, be) {
         (Encoding::Int { bytes: 1, .. }, _) => samples!(|b| (f64::from(b[0]) - 128.0) / 128.0),
@@ -407,39 +436,41 @@ pub(crate) fn channel_samples(layout: &WavLayout, bytes: &[u8], channel: usize) 
             f64::from(i32::from_be_bytes([b[0], b[1], b[2], b[3]])) * (1.0 / 2_147_483_648.0)
         }),
         (Encoding::Float { bytes: 4 }, false) => {
-            samples!(|b| f64::from(f32::from_le_bytes([b[0], b[1], b[2], b[3]])))
+            floats!(|b: &[u8]| f64::from(f32::from_le_bytes([b[0], b[1], b[2], b[3]])))
         }
         (Encoding::Float { bytes: 4 }, true) => {
-            samples!(|b| f64::from(f32::from_be_bytes([b[0], b[1], b[2], b[3]])))
+            floats!(|b: &[u8]| f64::from(f32::from_be_bytes([b[0], b[1], b[2], b[3]])))
         }
         (Encoding::Float { .. }, false) => {
-            samples!(|b| f64::from_le_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
+            floats!(|b: &[u8]| f64::from_le_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
         }
         (Encoding::Float { .. }, true) => {
-            samples!(|b| f64::from_be_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
+            floats!(|b: &[u8]| f64::from_be_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
         }
         (Encoding::MuLaw, _) => samples!(|b| f64::from(mulaw_to_i16(b[0])) * (1.0 / 32_768.0)),
         (Encoding::ALaw, _) => samples!(|b| f64::from(alaw_to_i16(b[0])) * (1.0 / 32_768.0)),
     }
 }
 
-/// One channel of interleaved frames through `f`, monomorphised per encoding (the hot loop
-/// of every WAV decode).
+/// One channel of interleaved frames through `f`, appended to `out`, monomorphised per
+/// encoding (the hot loop of every WAV decode).
 #[inline]
-fn collect<F: Fn(&[u8]) -> f64>(
+fn collect<F: FnMut(&[u8]) -> f64>(
     data: &[u8],
     width: usize,
     frame_bytes: usize,
     channel: usize,
-    f: F,
-) -> Vec<f64> {
+    mut f: F,
+    out: &mut Vec<f64>,
+) {
     if frame_bytes == width {
         // One channel: no per-frame slicing.
-        data.chunks_exact(width).map(f).collect()
+        out.extend(data.chunks_exact(width).map(f));
     } else {
-        data.chunks_exact(frame_bytes)
-            .map(|fr| f(&fr[channel * width..(channel + 1) * width]))
-            .collect()
+        out.extend(
+            data.chunks_exact(frame_bytes)
+                .map(|fr| f(&fr[channel * width..(channel + 1) * width])),
+        );
     }
 }
 
@@ -475,7 +506,8 @@ mod tests {
 
     fn read(bytes: &[u8]) -> (WavLayout, Vec<f64>) {
         let layout = parse(Path::new("t.wav"), bytes).unwrap().unwrap();
-        let samples = channel_samples(&layout, bytes, 0);
+        let mut samples = vec![9.0; 3];
+        assert!(channel_samples(&layout, bytes, 0, &mut samples));
         (layout, samples)
     }
 
@@ -509,6 +541,31 @@ mod tests {
         let (layout, s) = read(&b);
         assert!(layout.big_endian);
         assert_eq!(s, vec![0.5, -0.5]);
+    }
+
+    #[test]
+    fn float_samples_are_checked_for_finiteness_in_the_decoding_pass() {
+        // Two channels of 32-bit float: channel 0 holds 0.25, -1.0; channel 1 a NaN.
+        let frames: [[f32; 2]; 2] = [[0.25, 0.5], [-1.0, f32::NAN]];
+        let data: Vec<u8> = frames
+            .iter()
+            .flatten()
+            .flat_map(|v| v.to_le_bytes())
+            .collect();
+        let b = WavBuilder {
+            tag: 3,
+            channels: 2,
+            bits: 32,
+            ..WavBuilder::default()
+        }
+        .build(&data);
+        let layout = parse(Path::new("t.wav"), &b).unwrap().unwrap();
+        let mut out = vec![7.0; 100];
+        assert!(channel_samples(&layout, &b, 0, &mut out));
+        assert_eq!(out, vec![0.25, -1.0]);
+        assert!(!channel_samples(&layout, &b, 1, &mut out));
+        assert_eq!(out[0], 0.5);
+        assert!(out[1].is_nan());
     }
 
     #[test]
