@@ -305,7 +305,7 @@ fn audio_cost_per_second(specs: &[TrialSpec], rig: &RigProfile) -> f64 {
         };
         let t0 = thread_cpu_s();
         pipeline::read_inputs_into(&audio_only, &mut inputs).expect("read inputs");
-        let record = pipeline::analyze(&audio_only, &inputs, rig, &mut scratch);
+        let record = pipeline::analyze_in_place(&audio_only, &mut inputs, rig, &mut scratch);
         cpu_s += thread_cpu_s() - t0;
         audio_s += record.audio_duration_s.unwrap_or(0.0);
     }

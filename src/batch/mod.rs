@@ -502,7 +502,7 @@ fn process_with(
         }
         None => {
             let analysed = std::panic::catch_unwind(AssertUnwindSafe(|| {
-                pipeline::analyze(spec, inputs, &config.rig, scratch)
+                pipeline::analyze_in_place(spec, inputs, &config.rig, scratch)
             }));
             analysed.unwrap_or_else(|panic| {
                 let what = crate::error::panic_message(panic.as_ref());

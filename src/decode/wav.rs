@@ -374,7 +374,7 @@ fn next_chunk(body: usize, size: u64) -> Option<usize> {
 /// Channel `channel` of the samples into `out` (replacing what it held, keeping its memory),
 /// full scale 1.0 (integers divided by 2^(container bits - 1), unsigned 8-bit offset by 128,
 /// G.711 through its 16-bit expansion, as libsndfile does). Returns whether every sample is
-/// finite: integer codes always are, and float samples are checked in the same pass.
+/// finite, found in the same pass.
 pub(crate) fn channel_samples(
     layout: &WavLayout,
     bytes: &[u8],
@@ -384,34 +384,62 @@ pub(crate) fn channel_samples(
     let width = layout.encoding.bytes();
     let frame_bytes = layout.frame_bytes();
     let data = &bytes[layout.data_start..layout.data_start + layout.frames * frame_bytes];
-    let be = layout.big_endian;
     out.clear();
     out.reserve_exact(layout.frames);
+    convert(
+        layout,
+        Collect {
+            data,
+            width,
+            frame_bytes,
+            channel,
+            out,
+        },
+    )
+}
+
+/// Decodes a mono file in place: `bytes` holds the whole file and is at least 8 bytes a frame
+/// long; its first `8 x frames` bytes end up holding the samples as native-endian `f64`, as
+/// [`channel_samples`] gives them. Returns whether every sample is finite.
+pub(crate) fn mono_in_place(layout: &WavLayout, bytes: &mut [u8]) -> bool {
+    debug_assert!(layout.channels == 1 && bytes.len() >= 8 * layout.frames);
+    convert(
+        layout,
+        InPlace {
+            bytes,
+            data_start: layout.data_start,
+            width: layout.encoding.bytes(),
+            frames: layout.frames,
+        },
+    )
+}
+
+/// A loop over one channel's samples, given how to convert one sample's bytes.
+trait SampleLoop {
+    fn run<F: FnMut(&[u8]) -> f64>(self, f: F);
+}
+
+/// Runs `l` with the conversion of the layout's encoding; returns whether every sample is
+/// finite (integer codes always are; float samples are checked in the loop, an AND of flags).
+fn convert<L: SampleLoop>(layout: &WavLayout, l: L) -> bool {
+    let be = layout.big_endian;
     // Scales are powers of two, so multiplying by their inverse is exact (and a division per
     // sample costs as much as the rest of the decoding).
     // A macro, not a closure taking a closure: each arm's conversion is inlined into its loop.
     macro_rules! samples {
         ($f:expr) => {{
-            collect(data, width, frame_bytes, channel, $f, out);
+            l.run($f);
             true
         }};
     }
-    // Floats: the finiteness test rides in the decoding loop (an OR of flags, no branch).
     let mut finite = true;
     macro_rules! floats {
         ($f:expr) => {{
-            collect(
-                data,
-                width,
-                frame_bytes,
-                channel,
-                |b| {
-                    let v = $f(b);
-                    finite &= v.is_finite();
-                    v
-                },
-                out,
-            );
+            l.run(|b: &[u8]| {
+                let v = $f(b);
+                finite &= v.is_finite();
+                v
+            });
             finite
         }};
     }
@@ -452,25 +480,68 @@ pub(crate) fn channel_samples(
     }
 }
 
-/// One channel of interleaved frames through `f`, appended to `out`, monomorphised per
-/// encoding (the hot loop of every WAV decode).
-#[inline]
-fn collect<F: FnMut(&[u8]) -> f64>(
-    data: &[u8],
+/// One channel of interleaved frames, appended to `out` (the hot loop of every WAV decode).
+struct Collect<'a> {
+    data: &'a [u8],
     width: usize,
     frame_bytes: usize,
     channel: usize,
-    mut f: F,
-    out: &mut Vec<f64>,
-) {
-    if frame_bytes == width {
-        // One channel: no per-frame slicing.
-        out.extend(data.chunks_exact(width).map(f));
-    } else {
-        out.extend(
-            data.chunks_exact(frame_bytes)
-                .map(|fr| f(&fr[channel * width..(channel + 1) * width])),
-        );
+    out: &'a mut Vec<f64>,
+}
+
+impl SampleLoop for Collect<'_> {
+    #[inline]
+    fn run<F: FnMut(&[u8]) -> f64>(self, mut f: F) {
+        let (width, channel) = (self.width, self.channel);
+        if self.frame_bytes == width {
+            // One channel: no per-frame slicing.
+            self.out.extend(self.data.chunks_exact(width).map(f));
+        } else {
+            self.out.extend(
+                self.data
+                    .chunks_exact(self.frame_bytes)
+                    .map(|fr| f(&fr[channel * width..(channel + 1) * width])),
+            );
+        }
+    }
+}
+
+/// A mono file's samples decoded over its own bytes: sample `i` goes to bytes `8i..8i+8`.
+struct InPlace<'a> {
+    bytes: &'a mut [u8],
+    data_start: usize,
+    width: usize,
+    frames: usize,
+}
+
+impl SampleLoop for InPlace<'_> {
+    #[inline]
+    fn run<F: FnMut(&[u8]) -> f64>(self, mut f: F) {
+        let (bytes, ds, w, n) = (self.bytes, self.data_start, self.width, self.frames);
+        let mut read = |bytes: &[u8], i: usize| f(&bytes[ds + w * i..ds + w * (i + 1)]);
+        let put = |bytes: &mut [u8], i: usize, v: f64| {
+            bytes[8 * i..8 * i + 8].copy_from_slice(&v.to_ne_bytes());
+        };
+        if w >= 8 {
+            // Each sample lands before its own source and every later one: front to back.
+            for i in 0..n {
+                let v = read(bytes, i);
+                put(bytes, i, v);
+            }
+            return;
+        }
+        // Back to front: sample i lands past every earlier sample's source once
+        // 8i >= ds + w i; the first `head` samples, which do not, are read first and put
+        // in place last.
+        let head_n = ds.div_ceil(8 - w).min(n);
+        let head: Vec<f64> = (0..head_n).map(|i| read(bytes, i)).collect();
+        for i in (head_n..n).rev() {
+            let v = read(bytes, i);
+            put(bytes, i, v);
+        }
+        for (i, v) in head.into_iter().enumerate() {
+            put(bytes, i, v);
+        }
     }
 }
 
@@ -566,6 +637,66 @@ mod tests {
         assert!(!channel_samples(&layout, &b, 1, &mut out));
         assert_eq!(out[0], 0.5);
         assert!(out[1].is_nan());
+    }
+
+    #[test]
+    fn mono_decoded_in_place_equals_the_copying_decoder_for_every_encoding_and_header() {
+        // (magic, format tag, bits, with a bext chunk): every encoding, both byte orders and a
+        // 600-byte chunk before the data (many samples decoded ahead of the in-place pass).
+        let cases: [(&[u8; 4], u16, u16, bool); 11] = [
+            (b"RIFF", 1, 8, false),
+            (b"RIFF", 1, 16, true),
+            (b"RIFX", 1, 16, false),
+            (b"RIFF", 1, 24, false),
+            (b"RIFX", 1, 24, true),
+            (b"RIFF", 1, 32, false),
+            (b"RIFF", 3, 32, true),
+            (b"RIFX", 3, 32, false),
+            (b"RIFF", 3, 64, true),
+            (b"RIFF", 7, 8, false),
+            (b"RIFF", 6, 8, true),
+        ];
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        for (magic, tag, bits, bext) in cases {
+            for frames in [0usize, 1, 5, 200, 1001] {
+                let width = usize::from(bits / 8);
+                let data: Vec<u8> = (0..frames * width)
+                    .map(|k| {
+                        seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+                        // Floats: keep exponents moderate so that every sample is finite.
+                        let byte = (seed >> 56) as u8;
+                        if tag == 3 && k % width == width - 1 {
+                            byte & 0x3F
+                        } else {
+                            byte
+                        }
+                    })
+                    .collect();
+                let b = WavBuilder {
+                    magic,
+                    tag,
+                    bits,
+                    bext_time_reference: bext.then_some(7),
+                    ..WavBuilder::default()
+                }
+                .build(&data);
+                let layout = parse(Path::new("t.wav"), &b).unwrap().unwrap();
+                let mut want = Vec::new();
+                let want_finite = channel_samples(&layout, &b, 0, &mut want);
+                let mut buffer = b.clone();
+                buffer.resize(b.len().max(8 * frames), 0);
+                let finite = mono_in_place(&layout, &mut buffer);
+                let got: Vec<u64> = buffer
+                    .chunks_exact(8)
+                    .take(frames)
+                    .map(|c| f64::from_ne_bytes(c.try_into().unwrap()).to_bits())
+                    .collect();
+                let want: Vec<u64> = want.iter().map(|v| v.to_bits()).collect();
+                let case = format!("{magic:?} tag {tag} {bits}-bit, {frames} frames");
+                assert_eq!(got, want, "{case}");
+                assert_eq!(finite, want_finite, "{case}");
+            }
+        }
     }
 
     #[test]
