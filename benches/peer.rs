@@ -116,6 +116,9 @@ fn synth(dir: &Path, count: usize, duration_s: f64) {
         "7",
     ];
     run(EXE, &args, None).expect("latchtime synth");
+    // On disk before any timing, as a campaign's recordings are: otherwise the first flush
+    // of the records' group writes the fresh inputs too.
+    run("sync", &[], None).expect("sync");
 }
 
 /// The trials of a synthetic folder (audio and frames by name), in name order.
@@ -198,7 +201,8 @@ struct Stages {
     video: f64,
     bootstrap: f64,
     read: f64,
-    frames_json_write: f64,
+    frames_json: f64,
+    write: f64,
     measure: f64,
 }
 
@@ -241,10 +245,11 @@ fn profile(specs: &[TrialSpec], rig: &RigProfile, out: &Path) -> Stages {
         let record = pipeline::analyze(spec, &inputs, rig, &mut scratch);
         let t7 = thread_cpu_s();
         let json = report::json::record_json(&record);
+        let t8 = thread_cpu_s();
         writer
             .write(&out.join(format!("{}.json", spec.name)), json.as_bytes())
             .expect("write record");
-        let t8 = thread_cpu_s();
+        let t9 = thread_cpu_s();
         s.read += t1 - t0;
         s.hash += t2 - t1;
         s.decode_wav += t3 - t2;
@@ -252,10 +257,13 @@ fn profile(specs: &[TrialSpec], rig: &RigProfile, out: &Path) -> Stages {
         s.audio += t6 - t5;
         // `analyze` repeats the stages above; what it spends besides them is the measuring.
         s.measure += ((t7 - t6) - (t6 - t2)).max(0.0);
-        s.frames_json_write += (t4 - t3) + (t8 - t7);
+        s.frames_json += (t4 - t3) + (t8 - t7);
+        s.write += t9 - t8;
         records.push(record);
     }
+    let t0 = thread_cpu_s();
     writer.finish().expect("flush records");
+    s.write += thread_cpu_s() - t0;
     let t0 = thread_cpu_s();
     let mut table = GroupTable::default();
     for r in &records {
@@ -277,7 +285,8 @@ fn print_profile(s: &Stages, trials: usize) {
         ),
         ("summary bootstrap (groups.csv statistics)", s.bootstrap),
         ("read", s.read),
-        ("frames CSV parse, record JSON, writes", s.frames_json_write),
+        ("frames CSV parse, record JSON", s.frames_json),
+        ("record writes (atomic, disk synced per group)", s.write),
         ("measure (timing, sync, amplification, flags)", s.measure),
     ];
     let total: f64 = rows.iter().map(|r| r.1).sum();
