@@ -518,32 +518,46 @@ impl SampleLoop for InPlace<'_> {
     #[inline]
     fn run<F: FnMut(&[u8]) -> f64>(self, mut f: F) {
         let (bytes, ds, w, n) = (self.bytes, self.data_start, self.width, self.frames);
-        let mut read = |bytes: &[u8], i: usize| f(&bytes[ds + w * i..ds + w * (i + 1)]);
-        let put = |bytes: &mut [u8], i: usize, v: f64| {
-            bytes[8 * i..8 * i + 8].copy_from_slice(&v.to_ne_bytes());
+        // Narrower samples go back to front: sample i lands past every earlier sample's
+        // source once 8i >= ds + w i; the first `head_n` samples, which do not, are converted
+        // first and put in place last. A 64-bit sample lands before its own source and every
+        // later one: front to back, no head.
+        let head_n = if w >= 8 { 0 } else { ds.div_ceil(8 - w).min(n) };
+        let head: Vec<f64> = (0..head_n)
+            .map(|i| f(&bytes[ds + w * i..ds + w * (i + 1)]))
+            .collect();
+        // Samples go through a small buffer a chunk at a time: a chunk's sources are all read
+        // before any of its samples is written, and the loops stay as plain as a copy.
+        let mut chunk = [0.0f64; IN_PLACE_CHUNK];
+        let mut convert = |bytes: &mut [u8], lo: usize, hi: usize| {
+            let sources = bytes[ds + w * lo..ds + w * hi].chunks_exact(w);
+            for (v, b) in chunk.iter_mut().zip(sources) {
+                *v = f(b);
+            }
+            for (d, v) in bytes[8 * lo..8 * hi].chunks_exact_mut(8).zip(&chunk) {
+                d.copy_from_slice(&v.to_ne_bytes());
+            }
         };
         if w >= 8 {
-            // Each sample lands before its own source and every later one: front to back.
-            for i in 0..n {
-                let v = read(bytes, i);
-                put(bytes, i, v);
+            for lo in (0..n).step_by(IN_PLACE_CHUNK) {
+                convert(bytes, lo, (lo + IN_PLACE_CHUNK).min(n));
             }
             return;
         }
-        // Back to front: sample i lands past every earlier sample's source once
-        // 8i >= ds + w i; the first `head` samples, which do not, are read first and put
-        // in place last.
-        let head_n = ds.div_ceil(8 - w).min(n);
-        let head: Vec<f64> = (0..head_n).map(|i| read(bytes, i)).collect();
-        for i in (head_n..n).rev() {
-            let v = read(bytes, i);
-            put(bytes, i, v);
+        let mut hi = n;
+        while hi > head_n {
+            let lo = hi.saturating_sub(IN_PLACE_CHUNK).max(head_n);
+            convert(bytes, lo, hi);
+            hi = lo;
         }
-        for (i, v) in head.into_iter().enumerate() {
-            put(bytes, i, v);
+        for (d, v) in bytes[..8 * head_n].chunks_exact_mut(8).zip(&head) {
+            d.copy_from_slice(&v.to_ne_bytes());
         }
     }
 }
+
+/// Samples per chunk of [`InPlace`]: 4 KiB of buffer on the stack.
+const IN_PLACE_CHUNK: usize = 512;
 
 /// G.711 mu-law code to its 16-bit linear value (ITU-T G.711; the expansion of the classic
 /// public-domain g711.c, from memory, checked against libsndfile in tests/reference).
