@@ -4,12 +4,13 @@
 //!
 //! Records go through [`GroupSync`] instead: each is written to a temporary file and renamed
 //! into place at once (so a killed process, whose writes the kernel still holds, loses nothing
-//! and leaves no part of a record), but the disk is flushed once per group of records
-//! ([`SYNC_EVERY_RECORDS`] records or [`SYNC_EVERY`], whichever comes first, and at the end of
-//! the run) rather than once per record. A power cut or a kernel crash therefore loses at most
-//! the records written since the last flush: each is then missing, empty, cut short or the
-//! earlier version, and the next run recomputes it, because resume parses and checks the
-//! provenance of every record it reads.
+//! and leaves no part of a record), but the disk is flushed once per group of records rather
+//! than once per record: at the [`SYNC_EVERY_RECORDS`]th record since the last flush, at the
+//! first record written [`SYNC_EVERY`] or more after it, and at the end of the run. A power
+//! cut or a kernel crash therefore loses at most the records written since the last flush:
+//! each is then missing, empty, cut short or its earlier version, and the next run recomputes
+//! every one of them that is not a current record of its inputs, because resume parses and
+//! checks the provenance of every record it reads.
 //!
 //! Temporary names carry 64 random bits and are created exclusively (`O_CREAT | O_EXCL`), which
 //! refuses any existing name, a symbolic link included: a link planted in the folder is never
