@@ -44,7 +44,7 @@ const { chromium } = require('playwright-core');
   const after = await shown();
   if (!before.includes('mean-all=none') || !after.includes('mean-clean=none')) problems.push(`flagged switch: ${before} -> ${after}`);
   await page.click('#with-flagged');
-  for (const heading of ['latchtime version', 'settings SHA-256', 'rig file', 'Settings']) {
+  for (const heading of ['latchtime version', 'settings BLAKE3', 'rig file', 'Settings']) {
     const found = await page.evaluate((h) => document.body.innerText.includes(h), heading);
     if (!found) problems.push(`page lacks "${heading}"`);
   }

@@ -164,13 +164,19 @@ pub struct SyncCheck {
 
 pub use crate::detect::oscillation::Oscillation;
 
-/// Where the inputs of a record came from, for resume and audit.
+/// Where the inputs of a record came from, for resume and audit: BLAKE3 (lower-case hex) of
+/// each input's bytes and of the effective settings. Records made before BLAKE3 hold SHA-256
+/// under `*_sha256` names; they are read under the new names, never match a BLAKE3 digest, and
+/// so are recomputed once by the next run.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize, Default)]
 pub struct Provenance {
     pub tool_version: String,
-    pub audio_sha256: Option<String>,
-    pub frames_sha256: Option<String>,
-    pub settings_sha256: String,
+    #[serde(alias = "audio_sha256")]
+    pub audio_blake3: Option<String>,
+    #[serde(alias = "frames_sha256")]
+    pub frames_blake3: Option<String>,
+    #[serde(alias = "settings_sha256")]
+    pub settings_blake3: String,
 }
 
 /// One trial's results. Times in seconds on the clock their name says, durations in ms, null

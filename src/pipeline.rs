@@ -3,7 +3,7 @@
 
 use std::path::{Path, PathBuf};
 
-use crate::decode::{self, DecodedAudio, FrameOptions};
+use crate::decode::{self, DecodedAudio, FrameOptions, InputBytes};
 use crate::detect::{self, click::ClickScratch, AudioEvents};
 use crate::error::{Error, Result};
 use crate::measure::{self, AudioInput, ChannelChoice, Flag, TrialRecord};
@@ -18,17 +18,25 @@ pub struct TrialSpec {
     pub frames: Option<PathBuf>,
 }
 
-/// The raw bytes of a trial's inputs, read once (for hashing and decoding alike).
+/// The raw bytes of a trial's inputs, read once (for hashing and decoding alike). The audio's
+/// are held so that a mono WAV file can be decoded over them ([`analyze_in_place`]).
 #[derive(Debug, Clone, Default)]
 pub struct TrialInputs {
-    pub audio: Option<Vec<u8>>,
+    pub audio: Option<InputBytes>,
     pub frames: Option<Vec<u8>>,
 }
 
-/// Per-worker reusable state (FFT plans, buffers).
+/// Per-worker reusable state (FFT plans, buffers). The large buffers (the inputs' bytes, the
+/// decoded samples) keep their memory from trial to trial, so a worker going through long
+/// recordings does not map and fault in fresh pages for each; none of their content carries
+/// over.
 #[derive(Default)]
 pub struct Scratch {
     pub click: ClickScratch,
+    /// Memory for the decoded channel of the next WAV file.
+    samples: Vec<f64>,
+    /// Memory for the next trial's input bytes ([`read_inputs_into`]).
+    pub inputs: TrialInputs,
 }
 
 /// Largest input file read, bytes (4 GiB, the size limit of a plain WAV file). Larger files
@@ -43,7 +51,53 @@ pub const MAX_INPUT_BYTES: u64 = 4 << 30;
 /// With `follow_symlinks` false a symbolic link is refused as well. OS errors (missing file,
 /// no permission, I/O) are [`Error::Io`]; refusals are [`Error::Malformed`].
 pub fn read_bounded(path: &Path, limit_bytes: u64, follow_symlinks: bool) -> Result<Vec<u8>> {
+    let mut bytes = Vec::new();
+    read_bounded_into(path, limit_bytes, follow_symlinks, &mut bytes)?;
+    Ok(bytes)
+}
+
+/// As [`read_bounded`], into `bytes` (replacing what it held, keeping its memory).
+pub fn read_bounded_into(
+    path: &Path,
+    limit_bytes: u64,
+    follow_symlinks: bool,
+    bytes: &mut Vec<u8>,
+) -> Result<()> {
     use std::io::Read;
+    bytes.clear();
+    let (file, len) = open_bounded(path, limit_bytes, follow_symlinks)?;
+    // Room for one byte more than the file: reading to the end then needs no second buffer.
+    bytes.reserve_exact(len.saturating_add(1));
+    // One byte past the limit tells a file that grew while being read.
+    file.take(limit_bytes.saturating_add(1))
+        .read_to_end(bytes)
+        .map_err(|e| Error::io(path, e))?;
+    check_limit(path, bytes.len(), limit_bytes)
+}
+
+/// Reads an input file as [`read_input`] does, into `bytes` (keeping its memory).
+fn read_input_into(path: &Path, bytes: &mut InputBytes) -> Result<()> {
+    use std::io::Read;
+    let (file, len) = open_bounded(path, MAX_INPUT_BYTES, true)?;
+    bytes
+        .read_from(file.take(MAX_INPUT_BYTES.saturating_add(1)), len)
+        .map_err(|e| Error::io(path, e))?;
+    check_limit(path, bytes.len(), MAX_INPUT_BYTES)
+}
+
+fn check_limit(path: &Path, read: usize, limit_bytes: u64) -> Result<()> {
+    if read as u64 > limit_bytes {
+        return Err(too_large(path, limit_bytes));
+    }
+    Ok(())
+}
+
+/// Opens `path` after [`read_bounded`]'s checks; gives the file and its size.
+fn open_bounded(
+    path: &Path,
+    limit_bytes: u64,
+    follow_symlinks: bool,
+) -> Result<(std::fs::File, usize)> {
     let meta = if follow_symlinks {
         std::fs::metadata(path)
     } else {
@@ -62,15 +116,7 @@ pub fn read_bounded(path: &Path, limit_bytes: u64, follow_symlinks: bool) -> Res
     let file = options.open(path).map_err(|e| Error::io(path, e))?;
     let meta = file.metadata().map_err(|e| Error::io(path, e))?;
     refuse_irregular(path, &meta, limit_bytes)?;
-    let mut bytes = Vec::with_capacity(usize::try_from(meta.len()).unwrap_or(0));
-    // One byte past the limit tells a file that grew while being read.
-    file.take(limit_bytes.saturating_add(1))
-        .read_to_end(&mut bytes)
-        .map_err(|e| Error::io(path, e))?;
-    if bytes.len() as u64 > limit_bytes {
-        return Err(too_large(path, limit_bytes));
-    }
-    Ok(bytes)
+    Ok((file, usize::try_from(meta.len()).unwrap_or(0)))
 }
 
 /// What kind of file `meta` describes, for messages.
@@ -130,16 +176,46 @@ pub fn read_input(path: &Path) -> Result<Vec<u8>> {
 
 /// Reads the files a trial names.
 pub fn read_inputs(spec: &TrialSpec) -> Result<TrialInputs> {
+    let mut inputs = TrialInputs::default();
+    read_inputs_into(spec, &mut inputs)?;
+    Ok(inputs)
+}
+
+/// Reads the files a trial names into `inputs`, reusing its buffers' memory. On an error
+/// `inputs` holds nothing.
+pub fn read_inputs_into(spec: &TrialSpec, inputs: &mut TrialInputs) -> Result<()> {
     if spec.audio.is_none() && spec.frames.is_none() {
+        *inputs = TrialInputs::default();
         return Err(Error::Usage(format!(
             "trial {}: neither an audio file nor a frames file is given",
             spec.name
         )));
     }
-    Ok(TrialInputs {
-        audio: spec.audio.as_deref().map(read_input).transpose()?,
-        frames: spec.frames.as_deref().map(read_input).transpose()?,
-    })
+    let result = read_slot(&spec.audio, &mut inputs.audio, read_input_into).and_then(|()| {
+        read_slot(&spec.frames, &mut inputs.frames, |path, bytes| {
+            read_bounded_into(path, MAX_INPUT_BYTES, true, bytes)
+        })
+    });
+    if result.is_err() {
+        *inputs = TrialInputs::default();
+    }
+    result
+}
+
+/// Reads the file at `path`, if any, into `slot`'s buffer (kept from the last trial).
+fn read_slot<B: Default>(
+    path: &Option<PathBuf>,
+    slot: &mut Option<B>,
+    read: impl FnOnce(&Path, &mut B) -> Result<()>,
+) -> Result<()> {
+    let Some(path) = path else {
+        *slot = None;
+        return Ok(());
+    };
+    let mut bytes = slot.take().unwrap_or_default();
+    read(path, &mut bytes)?;
+    *slot = Some(bytes);
+    Ok(())
 }
 
 fn path_string(p: &Option<PathBuf>) -> Option<String> {
@@ -153,37 +229,117 @@ pub fn analyze(
     rig: &RigProfile,
     scratch: &mut Scratch,
 ) -> TrialRecord {
-    let mut record = match try_analyze(spec, inputs, rig, scratch) {
-        Ok(r) => r,
-        Err(e) => TrialRecord::failed(&spec.name, spec.group.as_deref(), e.to_string()),
+    let buffer = std::mem::take(&mut scratch.samples);
+    let audio = decode_first(
+        spec,
+        inputs.audio.as_deref(),
+        rig,
+        |path, bytes, channel| decode::decode_audio_reusing(path, bytes, channel, buffer),
+    );
+    let trial = FirstDecoded {
+        audio,
+        audio_bytes: inputs.audio.as_deref().unwrap_or_default(),
+        frames: inputs.frames.as_deref(),
     };
-    record.audio_file = path_string(&spec.audio);
-    record.frames_file = path_string(&spec.frames);
+    let (record, samples) = finish(spec, trial, rig, scratch);
+    scratch.samples = samples.unwrap_or_default();
     record
 }
 
-fn try_analyze(
+/// As [`analyze`], decoding a mono WAV file over its own bytes
+/// ([`decode::decode_audio_in_place`]): the worker holds 8 bytes a sample rather than the file
+/// and its samples side by side. The samples' memory then goes back into `inputs` for the next
+/// trial's bytes, so `inputs` no longer holds this trial's audio.
+pub fn analyze_in_place(
     spec: &TrialSpec,
-    inputs: &TrialInputs,
+    inputs: &mut TrialInputs,
     rig: &RigProfile,
     scratch: &mut Scratch,
-) -> Result<TrialRecord> {
-    // The rig's channel (the first one, for `auto`) is decoded first, so that a trial whose
-    // files are both unreadable reports its audio.
+) -> TrialRecord {
+    let buffer = std::mem::take(&mut scratch.samples);
+    let mut kept = None;
+    let input = inputs.audio.take();
+    let present = input.as_ref().map(|_| &[][..]);
+    let audio = decode_first(spec, present, rig, |path, _, channel| {
+        let input = input.unwrap_or_default();
+        let (decoded, back) = decode::decode_audio_in_place(path, input, channel, buffer)?;
+        kept = back;
+        Ok(decoded)
+    });
+    let trial = FirstDecoded {
+        audio,
+        audio_bytes: kept.as_deref().unwrap_or_default(),
+        frames: inputs.frames.as_deref(),
+    };
+    let (record, samples) = finish(spec, trial, rig, scratch);
+    match kept {
+        Some(input) => {
+            inputs.audio = Some(input);
+            scratch.samples = samples.unwrap_or_default();
+        }
+        None => inputs.audio = samples.map(InputBytes::from_words),
+    }
+    record
+}
+
+/// Decodes the rig's channel (the first one, for `auto`) with `decode`, when the trial has
+/// an audio file and its bytes.
+fn decode_first<'a>(
+    spec: &'a TrialSpec,
+    bytes: Option<&[u8]>,
+    rig: &RigProfile,
+    decode: impl FnOnce(&Path, &[u8], usize) -> Result<DecodedAudio>,
+) -> Option<(&'a Path, Result<DecodedAudio>)> {
     let first_channel = if rig.audio_channel_auto {
         0
     } else {
         rig.audio_channel
     };
-    let audio = match (&spec.audio, &inputs.audio) {
-        (Some(path), Some(bytes)) => Some((
-            path,
-            bytes,
-            decode::decode_audio_with_info(path, bytes, first_channel)?,
-        )),
-        _ => None,
+    let path = spec.audio.as_deref()?;
+    Some((path, decode(path, bytes?, first_channel)))
+}
+
+/// A trial whose audio's first channel is decoded.
+struct FirstDecoded<'a> {
+    audio: Option<(&'a Path, Result<DecodedAudio>)>,
+    /// The audio file's bytes, for its other channels (empty once decoded over them: a mono
+    /// file has no other channel).
+    audio_bytes: &'a [u8],
+    frames: Option<&'a [u8]>,
+}
+
+/// The rest of [`analyze`] once the audio's first channel is decoded; gives back the decoded
+/// samples' memory.
+fn finish(
+    spec: &TrialSpec,
+    trial: FirstDecoded,
+    rig: &RigProfile,
+    scratch: &mut Scratch,
+) -> (TrialRecord, Option<Vec<f64>>) {
+    let analysed = try_analyze(spec, trial, rig, scratch);
+    let (mut record, samples) = analysed.unwrap_or_else(|e| {
+        let failed = TrialRecord::failed(&spec.name, spec.group.as_deref(), e.to_string());
+        (failed, None)
+    });
+    record.audio_file = path_string(&spec.audio);
+    record.frames_file = path_string(&spec.frames);
+    (record, samples)
+}
+
+fn try_analyze(
+    spec: &TrialSpec,
+    trial: FirstDecoded,
+    rig: &RigProfile,
+    scratch: &mut Scratch,
+) -> Result<(TrialRecord, Option<Vec<f64>>)> {
+    // The audio is decoded first, so that a trial whose files are both unreadable reports
+    // its audio.
+    let audio = match trial.audio {
+        Some((path, decoded)) => Some((path, trial.audio_bytes, decoded?)),
+        None => None,
     };
-    let frames = match (&spec.frames, &inputs.frames) {
+    let frames = trial.frames;
+    let frames = match (&spec.frames, frames) {
         (Some(path), Some(bytes)) => Some(decode::decode_frames(
             path,
             bytes,
@@ -227,7 +383,7 @@ fn try_analyze(
             record.add_flags([Flag::FramesDroppedCells]);
         }
     }
-    Ok(record)
+    Ok((record, audio.map(|a| a.decoded.signal.samples)))
 }
 
 /// One trial's audio: the decoded channel, its events, and what the other channels showed.

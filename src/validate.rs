@@ -436,7 +436,7 @@ fn analyze_trial(
     scratch: &mut Scratch,
 ) -> TrialRecord {
     let inputs = TrialInputs {
-        audio: synth::wav_bytes(trial),
+        audio: synth::wav_bytes(trial).map(crate::decode::InputBytes::from),
         frames: synth::frames_csv(trial, config.timestamp_digits).map(String::into_bytes),
     };
     let spec = TrialSpec {

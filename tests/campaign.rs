@@ -1,7 +1,7 @@
 //! Overnight-campaign guarantees: a batch killed with SIGKILL at any point resumes to records
 //! byte-identical to an uninterrupted run, with no temporary or lock files left; shards cover every
 //! trial exactly once; a changed rig setting recomputes every trial it affects; groups.csv
-//! agrees with statistics computed independently.
+//! agrees with statistics computed independently; records of the SHA-256 era are recomputed once.
 
 mod common;
 
@@ -9,7 +9,7 @@ use std::collections::BTreeMap;
 use std::path::Path;
 use std::time::Duration;
 
-use common::{bin, quiet_batch, read_json};
+use common::{batch_messages, bin, quiet_batch, read_json};
 
 fn synth(dir: &Path, count: usize) {
     bin()
@@ -138,19 +138,8 @@ fn a_changed_rig_setting_recomputes_the_trials_it_affects() {
     synth(data.path(), 3);
     let out = tempfile::tempdir().unwrap();
     let rig = data.path().join("rig.json");
-    let run = || {
-        let o = bin()
-            .arg("batch")
-            .arg(data.path())
-            .arg("--out")
-            .arg(out.path())
-            .arg("--rig")
-            .arg(&rig)
-            .output()
-            .unwrap();
-        assert!(o.status.success());
-        String::from_utf8_lossy(&o.stderr).into_owned()
-    };
+    let rig_arg = rig.to_string_lossy().into_owned();
+    let run = || batch_messages(data.path(), out.path(), &["--rig", &rig_arg]);
     std::fs::write(&rig, r#"{"mic_distance_m": 0.3}"#).unwrap();
     assert!(run().contains("(3 analysed, 0 current"));
     assert!(run().contains("(0 analysed, 3 current"));
@@ -217,4 +206,54 @@ fn groups_csv_matches_statistics_computed_from_summary_csv() {
         assert!(low[3].is_empty() && low[4].contains("n < 5"), "{low:?}");
     }
     assert_eq!(&cell("(all)", "trials", "count")[3], "14");
+}
+
+/// Lower-case hex SHA-256 of a file, as versions before BLAKE3 wrote it into `provenance`.
+fn sha256_of_file(path: &Path) -> String {
+    use sha2::{Digest, Sha256};
+    format!("{:x}", Sha256::digest(std::fs::read(path).unwrap()))
+}
+
+#[test]
+fn records_holding_the_old_sha256_provenance_are_recomputed_once_then_reused() {
+    let data = tempfile::tempdir().unwrap();
+    synth(data.path(), 2);
+    let out = tempfile::tempdir().unwrap();
+    let run = || batch_messages(data.path(), out.path(), &[]);
+    assert!(run().contains("(2 analysed, 0 current"));
+    // Rewrite every record as an earlier version wrote it: SHA-256 of the same inputs under
+    // the `*_sha256` names (the settings' digest is any SHA-256: no BLAKE3 digest equals it).
+    for entry in std::fs::read_dir(out.path().join("trials")).unwrap() {
+        let path = entry.unwrap().path();
+        if path.extension().is_none_or(|e| e != "json") {
+            continue;
+        }
+        let mut record = read_json(&path);
+        let audio = record["audio_file"].as_str().unwrap().to_string();
+        let frames = record["frames_file"].as_str().unwrap().to_string();
+        let p = &mut record["provenance"];
+        let settings = p["settings_blake3"].as_str().unwrap().to_string();
+        *p = serde_json::json!({
+            "tool_version": p["tool_version"],
+            "audio_sha256": sha256_of_file(Path::new(&audio)),
+            "frames_sha256": sha256_of_file(Path::new(&frames)),
+            "settings_sha256": format!("{:x}", <sha2::Sha256 as sha2::Digest>::digest(settings)),
+        });
+        std::fs::write(&path, serde_json::to_string_pretty(&record).unwrap()).unwrap();
+    }
+    assert!(run().contains("(2 analysed, 0 current"));
+    for entry in std::fs::read_dir(out.path().join("trials")).unwrap() {
+        let path = entry.unwrap().path();
+        if path.extension().is_some_and(|e| e == "json") {
+            let record = read_json(&path);
+            let audio = record["audio_file"].as_str().unwrap();
+            // BLAKE3 of the audio bytes, computed here by the reference crate.
+            let want = blake3::hash(&std::fs::read(audio).unwrap())
+                .to_hex()
+                .to_string();
+            assert_eq!(record["provenance"]["audio_blake3"], want.as_str());
+            assert!(record["provenance"].get("audio_sha256").is_none());
+        }
+    }
+    assert!(run().contains("(0 analysed, 2 current"));
 }

@@ -5,7 +5,7 @@ mod common;
 
 use std::path::Path;
 
-use common::{bin, compare, read_json, repo, Tolerance};
+use common::{batch_messages, bin, compare, read_json, repo, Tolerance};
 
 /// First-pass tolerances promised for the sample data: click onsets within 0.2 ms, video
 /// events within 2 frame periods, loading_ms and release_ms within 10 %.
@@ -66,17 +66,7 @@ fn second_run_reuses_every_record_and_a_changed_input_recomputes_only_its_trial(
         .arg(data.path())
         .assert()
         .success();
-    let run = || {
-        let o = bin()
-            .arg("batch")
-            .arg(data.path())
-            .arg("--out")
-            .arg(out.path())
-            .output()
-            .unwrap();
-        assert!(o.status.success());
-        String::from_utf8_lossy(&o.stderr).into_owned()
-    };
+    let run = || batch_messages(data.path(), out.path(), &[]);
     assert!(run().contains("(4 analysed, 0 current records reused)"));
     assert!(run().contains("(0 analysed, 4 current records reused)"));
     let victim = std::fs::read_dir(data.path())

@@ -90,7 +90,7 @@ fn report_over_the_sample_data_links_a_figure_for_every_trial() {
     // What made the page is at its top, the settings at its bottom, and the switch that puts
     // flagged trials into the group means is there; chart points are named and linked.
     let run = common::read_json(&out.path().join("run.json"));
-    let hash = run["settings_sha256"].as_str().unwrap();
+    let hash = run["settings_blake3"].as_str().unwrap();
     assert!(html.find(hash).unwrap() < html.find("<h2>Groups</h2>").unwrap());
     assert!(html.contains("calibration/demo-rig.json"));
     assert!(html.find("<h2>Settings</h2>").unwrap() > html.find("<h2>Trials</h2>").unwrap());

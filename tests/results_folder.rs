@@ -7,7 +7,7 @@ mod common;
 use std::path::{Path, PathBuf};
 use std::process::Output;
 
-use common::{bin, read_json};
+use common::{batch_output as batch, bin, read_json};
 use latchtime::batch::lock::{self, Scope};
 
 /// Writes `count` short synthetic trials of one kind into `dir`.
@@ -28,17 +28,6 @@ fn campaign(count: usize) -> (tempfile::TempDir, PathBuf, PathBuf) {
     synth(&data, count, "normal");
     let out = dir.path().join("out");
     (dir, data, out)
-}
-
-fn batch(input: &Path, out: &Path, extra: &[&str]) -> Output {
-    bin()
-        .arg("batch")
-        .arg(input)
-        .arg("--out")
-        .arg(out)
-        .args(extra)
-        .output()
-        .unwrap()
 }
 
 fn stderr(o: &Output) -> String {

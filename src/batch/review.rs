@@ -248,7 +248,7 @@ fn run_header(run: Option<&super::RunFile>) -> Vec<(String, String)> {
         .unwrap_or_else(|| "none (built-in defaults)".into());
     vec![
         ("latchtime version".into(), run.tool_version.clone()),
-        ("settings SHA-256".into(), run.settings_sha256.clone()),
+        ("settings BLAKE3".into(), run.settings_blake3.clone()),
         ("rig file".into(), rig),
         (
             "run".into(),

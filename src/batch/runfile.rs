@@ -1,6 +1,6 @@
 //! The run file: what one batch run was asked to do and what it did. `DIR/run.json` for a run
 //! over the whole campaign, `DIR/run.shard-K-of-N.json` for each shard. It holds the tool
-//! version, the effective settings and their SHA-256, the command, the campaign's trials (name,
+//! version, the effective settings and their BLAKE3, the command, the campaign's trials (name,
 //! group, input paths; every trial, also those of other shards), start and end times, counts and
 //! each trial's outcome in this run. `summarize` and `report` read the campaign and its
 //! settings from it. The file is written when a run starts and again when it ends; it is the one
@@ -89,7 +89,9 @@ pub struct RunFile {
     /// Shard K of N, when the run was one.
     pub shard: Option<(u64, u64)>,
     pub settings: RigProfile,
-    pub settings_sha256: String,
+    /// BLAKE3 of the settings (SHA-256 in run files of earlier versions, read under this name).
+    #[serde(alias = "settings_sha256")]
+    pub settings_blake3: String,
     pub host: String,
     pub pid: u32,
     pub started: String,

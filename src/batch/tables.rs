@@ -6,6 +6,8 @@
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
+use rayon::prelude::*;
+
 use crate::error::{Error, Result};
 use crate::report;
 
@@ -69,9 +71,9 @@ pub fn campaign_records(dir: &Path) -> Result<CampaignRecords> {
 pub struct MixedSettings {
     /// Records read.
     pub records: usize,
-    /// The campaign's settings SHA-256 and version (the run file's, or the most common).
+    /// The campaign's settings BLAKE3 and version (the run file's, or the most common).
     pub expected: (String, String),
-    /// Other (settings SHA-256, version) and how many records have each, most first.
+    /// Other (settings BLAKE3, version) and how many records have each, most first.
     pub others: Vec<((String, String), usize)>,
     /// Up to 10 of the trials concerned.
     pub examples: Vec<String>,
@@ -143,7 +145,7 @@ pub(crate) fn write_tables(
             };
             read += 1;
             let key = (
-                r.provenance.settings_sha256.clone(),
+                r.provenance.settings_blake3.clone(),
                 r.provenance.tool_version.clone(),
             );
             let entry = versions.entry(key).or_default();
@@ -159,7 +161,7 @@ pub(crate) fn write_tables(
         w.flush().map_err(|e| Error::io(&summary, e))?;
     }
     let expected = match &records.run {
-        Some(run) => (run.settings_sha256.clone(), run.tool_version.clone()),
+        Some(run) => (run.settings_blake3.clone(), run.tool_version.clone()),
         None => versions
             .iter()
             .max_by_key(|(_, (n, _))| *n)
@@ -193,6 +195,13 @@ pub(crate) fn write_tables(
         });
     }
     atomic::write_atomic(&summary, &buf)?;
+    // The bootstraps are the tables' main cost, and each group's measures are independent.
+    groups.compute_stats(|samples| {
+        samples
+            .par_iter()
+            .map(|v| report::groups::stats(v))
+            .collect()
+    });
     let groups_path = dir.join("groups.csv");
     let mut gbuf = Vec::new();
     groups

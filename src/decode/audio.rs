@@ -74,6 +74,19 @@ pub fn decode_audio(path: &Path, bytes: &[u8], channel: usize) -> Result<AudioSi
 /// Decodes `bytes` (the content of `path`), keeps channel `channel`, and reports what the file
 /// says about its timing (encoder delay, truncation, an unfinalised header, `bext`).
 pub fn decode_audio_with_info(path: &Path, bytes: &[u8], channel: usize) -> Result<DecodedAudio> {
+    decode_audio_reusing(path, bytes, channel, Vec::new())
+}
+
+/// As [`decode_audio_with_info`], decoding a WAV file's samples into `buffer` (its memory is
+/// reused: a worker that decodes trial after trial does not fault in fresh pages for each).
+/// The samples come out in their analysis form in one pass over the bytes, the finiteness
+/// check included.
+pub fn decode_audio_reusing(
+    path: &Path,
+    bytes: &[u8],
+    channel: usize,
+    mut buffer: Vec<f64>,
+) -> Result<DecodedAudio> {
     if bytes.is_empty() {
         return Err(Error::malformed(path, "file is empty (0 bytes)"));
     }
@@ -82,28 +95,45 @@ pub fn decode_audio_with_info(path: &Path, bytes: &[u8], channel: usize) -> Resu
     } else {
         None
     };
-    let decoded = match wav_layout {
+    let (decoded, finite_known) = match wav_layout {
         Some(layout) => {
             check_channel(path, channel, layout.channels)?;
-            DecodedAudio {
-                signal: AudioSignal {
-                    samples: wav::channel_samples(&layout, bytes, channel),
-                    sample_rate_hz: f64::from(layout.sample_rate),
-                    channels: layout.channels,
-                    channel,
-                    clip_level: layout.clip_level(),
-                    bits_per_sample: Some(layout.bits_per_sample()),
-                },
-                info: AudioInfo {
-                    format: layout.describe(),
-                    unfinalised: layout.unfinalised,
-                    recording: layout.recording.clone(),
-                    ..AudioInfo::default()
-                },
-            }
+            let finite = wav::channel_samples(&layout, bytes, channel, &mut buffer);
+            (wav_decoded(&layout, channel, buffer), finite)
         }
-        None => decode_with_symphonia(path, bytes, channel)?,
+        None => (decode_with_symphonia(path, bytes, channel)?, false),
     };
+    check_decoded(path, decoded, channel, finite_known)
+}
+
+/// A WAV file's decoded channel with what its header says.
+fn wav_decoded(layout: &wav::WavLayout, channel: usize, samples: Vec<f64>) -> DecodedAudio {
+    DecodedAudio {
+        signal: AudioSignal {
+            samples,
+            sample_rate_hz: f64::from(layout.sample_rate),
+            channels: layout.channels,
+            channel,
+            clip_level: layout.clip_level(),
+            bits_per_sample: Some(layout.bits_per_sample()),
+        },
+        info: AudioInfo {
+            format: layout.describe(),
+            unfinalised: layout.unfinalised,
+            recording: layout.recording.clone(),
+            ..AudioInfo::default()
+        },
+    }
+}
+
+/// Refuses a decoded channel without samples, at an unsupported rate, or with a sample that
+/// is not finite (checked here unless `finite_known`).
+fn check_decoded(
+    path: &Path,
+    decoded: DecodedAudio,
+    channel: usize,
+    finite_known: bool,
+) -> Result<DecodedAudio> {
     let signal = &decoded.signal;
     if signal.samples.is_empty() {
         let reason = if decoded.info.truncated {
@@ -122,13 +152,122 @@ pub fn decode_audio_with_info(path: &Path, bytes: &[u8], channel: usize) -> Resu
             ),
         ));
     }
-    if let Some(bad) = signal.samples.iter().position(|x| !x.is_finite()) {
+    let bad = (!finite_known)
+        .then(|| signal.samples.iter().position(|x| !x.is_finite()))
+        .flatten();
+    if let Some(bad) = bad {
         return Err(Error::malformed(
             path,
             format!("sample {bad} of channel {channel} is not a finite number"),
         ));
     }
     Ok(decoded)
+}
+
+/// An input file's bytes held in memory of 8-byte words, so that a mono WAV file can be
+/// decoded over its own bytes ([`decode_audio_in_place`]): a worker then holds one buffer of
+/// 8 bytes a sample (twice a 32-bit file's size) instead of the file and its samples side by
+/// side. Reads as the file's bytes.
+#[derive(Debug, Clone, Default)]
+pub struct InputBytes {
+    words: Vec<f64>,
+    len: usize,
+}
+
+/// The bytes of `words`.
+fn bytes_of(words: &[f64]) -> &[u8] {
+    // SAFETY: f64 has no padding and u8 no alignment; the slice covers exactly the words.
+    unsafe { std::slice::from_raw_parts(words.as_ptr().cast::<u8>(), std::mem::size_of_val(words)) }
+}
+
+/// The bytes of `words`, writable: any bytes make a valid f64.
+fn bytes_of_mut(words: &mut [f64]) -> &mut [u8] {
+    let len = std::mem::size_of_val(words);
+    // SAFETY: as `bytes_of`; every bit pattern is a valid f64, so any write leaves valid words,
+    // and the borrow of `words` is held for the slice's life.
+    unsafe { std::slice::from_raw_parts_mut(words.as_mut_ptr().cast::<u8>(), len) }
+}
+
+impl std::ops::Deref for InputBytes {
+    type Target = [u8];
+    fn deref(&self) -> &[u8] {
+        &bytes_of(&self.words)[..self.len]
+    }
+}
+
+impl From<Vec<u8>> for InputBytes {
+    fn from(bytes: Vec<u8>) -> Self {
+        let mut words = vec![0.0; bytes.len().div_ceil(8)];
+        bytes_of_mut(&mut words)[..bytes.len()].copy_from_slice(&bytes);
+        InputBytes {
+            words,
+            len: bytes.len(),
+        }
+    }
+}
+
+impl InputBytes {
+    /// Empty, reusing the memory of `words` (decoded samples handed back).
+    pub fn from_words(words: Vec<f64>) -> Self {
+        InputBytes { words, len: 0 }
+    }
+
+    /// Replaces the content with everything `reader` gives, expecting about `size_hint`
+    /// bytes; keeps the memory it has.
+    pub fn read_from(
+        &mut self,
+        mut reader: impl std::io::Read,
+        size_hint: usize,
+    ) -> std::io::Result<()> {
+        self.len = 0;
+        // One byte more than expected, so that reaching the end needs no second buffer.
+        let want = size_hint.saturating_add(1).div_ceil(8);
+        if self.words.len() < want {
+            self.words.resize(want, 0.0);
+        }
+        loop {
+            let view = bytes_of_mut(&mut self.words);
+            if self.len == view.len() {
+                let more = self.words.len().max(1024);
+                self.words.resize(self.words.len() + more, 0.0);
+                continue;
+            }
+            match reader.read(&mut view[self.len..]) {
+                Ok(0) => return Ok(()),
+                Ok(k) => self.len += k,
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => {}
+                Err(e) => return Err(e),
+            }
+        }
+    }
+}
+
+/// Decodes `input` (the content of `path`) as [`decode_audio_reusing`] does, but a mono WAV
+/// file over its own bytes: its memory becomes the samples, and `None` comes back. Any other
+/// file is decoded into `buffer` and its bytes come back for decoding other channels.
+pub fn decode_audio_in_place(
+    path: &Path,
+    input: InputBytes,
+    channel: usize,
+    buffer: Vec<f64>,
+) -> Result<(DecodedAudio, Option<InputBytes>)> {
+    let layout = if wav::is_wav(&input) {
+        wav::parse(path, &input)?
+    } else {
+        None
+    };
+    let Some(layout) = layout.filter(|l| l.channels == 1 && channel == 0) else {
+        let decoded = decode_audio_reusing(path, &input, channel, buffer)?;
+        return Ok((decoded, Some(input)));
+    };
+    let mut words = input.words;
+    if words.len() < layout.frames {
+        words.resize(layout.frames, 0.0);
+    }
+    let finite = wav::mono_in_place(&layout, bytes_of_mut(&mut words));
+    words.truncate(layout.frames);
+    let decoded = wav_decoded(&layout, channel, words);
+    check_decoded(path, decoded, channel, finite).map(|d| (d, None))
 }
 
 fn check_channel(path: &Path, channel: usize, channels: usize) -> Result<()> {
@@ -518,6 +657,68 @@ mod tests {
         )
         .unwrap_err();
         assert!(e.to_string().contains("junk.wav"), "{e}");
+    }
+
+    #[test]
+    fn an_infinite_float_sample_is_an_error_naming_it_and_a_reused_buffer_changes_nothing() {
+        let spec = hound::WavSpec {
+            channels: 1,
+            sample_rate: 48_000,
+            bits_per_sample: 32,
+            sample_format: hound::SampleFormat::Float,
+        };
+        let write = |samples: &[f32]| {
+            let mut cursor = Cursor::new(Vec::new());
+            let mut w = hound::WavWriter::new(&mut cursor, spec).unwrap();
+            for &v in samples {
+                w.write_sample(v).unwrap();
+            }
+            w.finalize().unwrap();
+            cursor.into_inner()
+        };
+        let bad = write(&[0.5, 0.25, f32::INFINITY, 0.0]);
+        let e = decode_audio_reusing(Path::new("inf.wav"), &bad, 0, Vec::new()).unwrap_err();
+        assert!(e.to_string().contains("inf.wav"), "{e}");
+        assert!(e.to_string().contains("sample 2 "), "{e}");
+        let good = write(&[0.5, -0.25]);
+        let reused = decode_audio_reusing(Path::new("ok.wav"), &good, 0, vec![3.0; 1000]).unwrap();
+        let fresh = decode_audio(Path::new("ok.wav"), &good, 0).unwrap();
+        assert_eq!(reused.signal.samples, fresh.samples);
+        assert_eq!(fresh.samples, vec![0.5, -0.25]);
+    }
+
+    #[test]
+    fn in_place_decoding_consumes_a_mono_wav_and_gives_back_other_files() {
+        let mono = hound::WavSpec {
+            channels: 1,
+            sample_rate: 48_000,
+            bits_per_sample: 16,
+            sample_format: hound::SampleFormat::Int,
+        };
+        let frames: Vec<Vec<i32>> = (0..300).map(|k| vec![(k * 97 % 20_000) - 10_000]).collect();
+        let bytes = wav_bytes(mono, &frames);
+        let want = decode_audio(Path::new("m.wav"), &bytes, 0).unwrap();
+        let input = InputBytes::from(bytes.clone());
+        assert_eq!(&input[..], &bytes[..]);
+        let (got, back) = decode_audio_in_place(Path::new("m.wav"), input, 0, Vec::new()).unwrap();
+        assert!(back.is_none(), "a mono WAV is decoded over its bytes");
+        assert_eq!(got.signal.samples, want.samples);
+        // Its memory, handed back, takes the next file whole.
+        let mut reused = InputBytes::from_words(got.signal.samples);
+        reused.read_from(&bytes[..], 10).unwrap();
+        assert_eq!(&reused[..], &bytes[..]);
+        let stereo = hound::WavSpec {
+            channels: 2,
+            ..mono
+        };
+        let bytes = wav_bytes(stereo, &[vec![100, -200], vec![300, -400]]);
+        let input = InputBytes::from(bytes.clone());
+        let (got, back) = decode_audio_in_place(Path::new("s.wav"), input, 1, Vec::new()).unwrap();
+        assert_eq!(
+            got.signal.samples,
+            vec![-200.0 / 32_768.0, -400.0 / 32_768.0]
+        );
+        assert_eq!(back.as_deref(), Some(&bytes[..]));
     }
 
     #[test]

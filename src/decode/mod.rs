@@ -8,7 +8,10 @@ pub mod frames;
 mod mp4;
 mod wav;
 
-pub use audio::{decode_audio, decode_audio_with_info, AudioInfo, DecodedAudio};
+pub use audio::{
+    decode_audio, decode_audio_in_place, decode_audio_reusing, decode_audio_with_info, AudioInfo,
+    DecodedAudio, InputBytes,
+};
 pub use frames::{decode_frames, FrameOptions};
 
 use std::path::Path;

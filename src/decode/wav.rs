@@ -371,20 +371,77 @@ fn next_chunk(body: usize, size: u64) -> Option<usize> {
     body.checked_add(usize::try_from(padded).ok()?)
 }
 
-/// Channel `channel` of the samples, full scale 1.0 (integers divided by 2^(container bits -
-/// 1), unsigned 8-bit offset by 128, G.711 through its 16-bit expansion, as libsndfile does).
-pub(crate) fn channel_samples(layout: &WavLayout, bytes: &[u8], channel: usize) -> Vec<f64> {
+/// Channel `channel` of the samples into `out` (replacing what it held, keeping its memory),
+/// full scale 1.0 (integers divided by 2^(container bits - 1), unsigned 8-bit offset by 128,
+/// G.711 through its 16-bit expansion, as libsndfile does). Returns whether every sample is
+/// finite, found in the same pass.
+pub(crate) fn channel_samples(
+    layout: &WavLayout,
+    bytes: &[u8],
+    channel: usize,
+    out: &mut Vec<f64>,
+) -> bool {
     let width = layout.encoding.bytes();
     let frame_bytes = layout.frame_bytes();
     let data = &bytes[layout.data_start..layout.data_start + layout.frames * frame_bytes];
+    out.clear();
+    out.reserve_exact(layout.frames);
+    convert(
+        layout,
+        Collect {
+            data,
+            width,
+            frame_bytes,
+            channel,
+            out,
+        },
+    )
+}
+
+/// Decodes a mono file in place: `bytes` holds the whole file and is at least 8 bytes a frame
+/// long; its first `8 x frames` bytes end up holding the samples as native-endian `f64`, as
+/// [`channel_samples`] gives them. Returns whether every sample is finite.
+pub(crate) fn mono_in_place(layout: &WavLayout, bytes: &mut [u8]) -> bool {
+    debug_assert!(layout.channels == 1 && bytes.len() >= 8 * layout.frames);
+    convert(
+        layout,
+        InPlace {
+            bytes,
+            data_start: layout.data_start,
+            width: layout.encoding.bytes(),
+            frames: layout.frames,
+        },
+    )
+}
+
+/// A loop over one channel's samples, given how to convert one sample's bytes.
+trait SampleLoop {
+    fn run<F: FnMut(&[u8]) -> f64>(self, f: F);
+}
+
+/// Runs `l` with the conversion of the layout's encoding; returns whether every sample is
+/// finite (integer codes always are; float samples are checked in the loop, an AND of flags).
+fn convert<L: SampleLoop>(layout: &WavLayout, l: L) -> bool {
     let be = layout.big_endian;
     // Scales are powers of two, so multiplying by their inverse is exact (and a division per
     // sample costs as much as the rest of the decoding).
     // A macro, not a closure taking a closure: each arm's conversion is inlined into its loop.
     macro_rules! samples {
-        ($f:expr) => {
-            collect(data, width, frame_bytes, channel, $f)
-        };
+        ($f:expr) => {{
+            l.run($f);
+            true
+        }};
+    }
+    let mut finite = true;
+    macro_rules! floats {
+        ($f:expr) => {{
+            l.run(|b: &[u8]| {
+                let v = $f(b);
+                finite &= v.is_finite();
+                v
+            });
+            finite
+        }};
     }
     match (layout.encoding, be) {
         (Encoding::Int { bytes: 1, .. }, _) => samples!(|b| (f64::from(b[0]) - 128.0) / 128.0),
@@ -407,41 +464,100 @@ pub(crate) fn channel_samples(layout: &WavLayout, bytes: &[u8], channel: usize) 
             f64::from(i32::from_be_bytes([b[0], b[1], b[2], b[3]])) * (1.0 / 2_147_483_648.0)
         }),
         (Encoding::Float { bytes: 4 }, false) => {
-            samples!(|b| f64::from(f32::from_le_bytes([b[0], b[1], b[2], b[3]])))
+            floats!(|b: &[u8]| f64::from(f32::from_le_bytes([b[0], b[1], b[2], b[3]])))
         }
         (Encoding::Float { bytes: 4 }, true) => {
-            samples!(|b| f64::from(f32::from_be_bytes([b[0], b[1], b[2], b[3]])))
+            floats!(|b: &[u8]| f64::from(f32::from_be_bytes([b[0], b[1], b[2], b[3]])))
         }
         (Encoding::Float { .. }, false) => {
-            samples!(|b| f64::from_le_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
+            floats!(|b: &[u8]| f64::from_le_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
         }
         (Encoding::Float { .. }, true) => {
-            samples!(|b| f64::from_be_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
+            floats!(|b: &[u8]| f64::from_be_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]]))
         }
         (Encoding::MuLaw, _) => samples!(|b| f64::from(mulaw_to_i16(b[0])) * (1.0 / 32_768.0)),
         (Encoding::ALaw, _) => samples!(|b| f64::from(alaw_to_i16(b[0])) * (1.0 / 32_768.0)),
     }
 }
 
-/// One channel of interleaved frames through `f`, monomorphised per encoding (the hot loop
-/// of every WAV decode).
-#[inline]
-fn collect<F: Fn(&[u8]) -> f64>(
-    data: &[u8],
+/// One channel of interleaved frames, appended to `out` (the hot loop of every WAV decode).
+struct Collect<'a> {
+    data: &'a [u8],
     width: usize,
     frame_bytes: usize,
     channel: usize,
-    f: F,
-) -> Vec<f64> {
-    if frame_bytes == width {
-        // One channel: no per-frame slicing.
-        data.chunks_exact(width).map(f).collect()
-    } else {
-        data.chunks_exact(frame_bytes)
-            .map(|fr| f(&fr[channel * width..(channel + 1) * width]))
-            .collect()
+    out: &'a mut Vec<f64>,
+}
+
+impl SampleLoop for Collect<'_> {
+    #[inline]
+    fn run<F: FnMut(&[u8]) -> f64>(self, mut f: F) {
+        let (width, channel) = (self.width, self.channel);
+        if self.frame_bytes == width {
+            // One channel: no per-frame slicing.
+            self.out.extend(self.data.chunks_exact(width).map(f));
+        } else {
+            self.out.extend(
+                self.data
+                    .chunks_exact(self.frame_bytes)
+                    .map(|fr| f(&fr[channel * width..(channel + 1) * width])),
+            );
+        }
     }
 }
+
+/// A mono file's samples decoded over its own bytes: sample `i` goes to bytes `8i..8i+8`.
+struct InPlace<'a> {
+    bytes: &'a mut [u8],
+    data_start: usize,
+    width: usize,
+    frames: usize,
+}
+
+impl SampleLoop for InPlace<'_> {
+    #[inline]
+    fn run<F: FnMut(&[u8]) -> f64>(self, mut f: F) {
+        let (bytes, ds, w, n) = (self.bytes, self.data_start, self.width, self.frames);
+        // Narrower samples go back to front: sample i lands past every earlier sample's
+        // source once 8i >= ds + w i; the first `head_n` samples, which do not, are converted
+        // first and put in place last. A 64-bit sample lands before its own source and every
+        // later one: front to back, no head.
+        let head_n = if w >= 8 { 0 } else { ds.div_ceil(8 - w).min(n) };
+        let head: Vec<f64> = (0..head_n)
+            .map(|i| f(&bytes[ds + w * i..ds + w * (i + 1)]))
+            .collect();
+        // Samples go through a small buffer a chunk at a time: a chunk's sources are all read
+        // before any of its samples is written, and the loops stay as plain as a copy.
+        let mut chunk = [0.0f64; IN_PLACE_CHUNK];
+        let mut convert = |bytes: &mut [u8], lo: usize, hi: usize| {
+            let sources = bytes[ds + w * lo..ds + w * hi].chunks_exact(w);
+            for (v, b) in chunk.iter_mut().zip(sources) {
+                *v = f(b);
+            }
+            for (d, v) in bytes[8 * lo..8 * hi].chunks_exact_mut(8).zip(&chunk) {
+                d.copy_from_slice(&v.to_ne_bytes());
+            }
+        };
+        if w >= 8 {
+            for lo in (0..n).step_by(IN_PLACE_CHUNK) {
+                convert(bytes, lo, (lo + IN_PLACE_CHUNK).min(n));
+            }
+            return;
+        }
+        let mut hi = n;
+        while hi > head_n {
+            let lo = hi.saturating_sub(IN_PLACE_CHUNK).max(head_n);
+            convert(bytes, lo, hi);
+            hi = lo;
+        }
+        for (d, v) in bytes[..8 * head_n].chunks_exact_mut(8).zip(&head) {
+            d.copy_from_slice(&v.to_ne_bytes());
+        }
+    }
+}
+
+/// Samples per chunk of [`InPlace`]: 4 KiB of buffer on the stack.
+const IN_PLACE_CHUNK: usize = 512;
 
 /// G.711 mu-law code to its 16-bit linear value (ITU-T G.711; the expansion of the classic
 /// public-domain g711.c, from memory, checked against libsndfile in tests/reference).
@@ -475,7 +591,8 @@ mod tests {
 
     fn read(bytes: &[u8]) -> (WavLayout, Vec<f64>) {
         let layout = parse(Path::new("t.wav"), bytes).unwrap().unwrap();
-        let samples = channel_samples(&layout, bytes, 0);
+        let mut samples = vec![9.0; 3];
+        assert!(channel_samples(&layout, bytes, 0, &mut samples));
         (layout, samples)
     }
 
@@ -509,6 +626,91 @@ mod tests {
         let (layout, s) = read(&b);
         assert!(layout.big_endian);
         assert_eq!(s, vec![0.5, -0.5]);
+    }
+
+    #[test]
+    fn float_samples_are_checked_for_finiteness_in_the_decoding_pass() {
+        // Two channels of 32-bit float: channel 0 holds 0.25, -1.0; channel 1 a NaN.
+        let frames: [[f32; 2]; 2] = [[0.25, 0.5], [-1.0, f32::NAN]];
+        let data: Vec<u8> = frames
+            .iter()
+            .flatten()
+            .flat_map(|v| v.to_le_bytes())
+            .collect();
+        let b = WavBuilder {
+            tag: 3,
+            channels: 2,
+            bits: 32,
+            ..WavBuilder::default()
+        }
+        .build(&data);
+        let layout = parse(Path::new("t.wav"), &b).unwrap().unwrap();
+        let mut out = vec![7.0; 100];
+        assert!(channel_samples(&layout, &b, 0, &mut out));
+        assert_eq!(out, vec![0.25, -1.0]);
+        assert!(!channel_samples(&layout, &b, 1, &mut out));
+        assert_eq!(out[0], 0.5);
+        assert!(out[1].is_nan());
+    }
+
+    #[test]
+    fn mono_decoded_in_place_equals_the_copying_decoder_for_every_encoding_and_header() {
+        // (magic, format tag, bits, with a bext chunk): every encoding, both byte orders and a
+        // 600-byte chunk before the data (many samples decoded ahead of the in-place pass).
+        let cases: [(&[u8; 4], u16, u16, bool); 11] = [
+            (b"RIFF", 1, 8, false),
+            (b"RIFF", 1, 16, true),
+            (b"RIFX", 1, 16, false),
+            (b"RIFF", 1, 24, false),
+            (b"RIFX", 1, 24, true),
+            (b"RIFF", 1, 32, false),
+            (b"RIFF", 3, 32, true),
+            (b"RIFX", 3, 32, false),
+            (b"RIFF", 3, 64, true),
+            (b"RIFF", 7, 8, false),
+            (b"RIFF", 6, 8, true),
+        ];
+        let mut seed = 0x9e37_79b9_7f4a_7c15u64;
+        for (magic, tag, bits, bext) in cases {
+            for frames in [0usize, 1, 5, 200, 1001] {
+                let width = usize::from(bits / 8);
+                let data: Vec<u8> = (0..frames * width)
+                    .map(|k| {
+                        seed = seed.wrapping_mul(6_364_136_223_846_793_005).wrapping_add(1);
+                        // Floats: keep exponents moderate so that every sample is finite.
+                        let byte = (seed >> 56) as u8;
+                        if tag == 3 && k % width == width - 1 {
+                            byte & 0x3F
+                        } else {
+                            byte
+                        }
+                    })
+                    .collect();
+                let b = WavBuilder {
+                    magic,
+                    tag,
+                    bits,
+                    bext_time_reference: bext.then_some(7),
+                    ..WavBuilder::default()
+                }
+                .build(&data);
+                let layout = parse(Path::new("t.wav"), &b).unwrap().unwrap();
+                let mut want = Vec::new();
+                let want_finite = channel_samples(&layout, &b, 0, &mut want);
+                let mut buffer = b.clone();
+                buffer.resize(b.len().max(8 * frames), 0);
+                let finite = mono_in_place(&layout, &mut buffer);
+                let got: Vec<u64> = buffer
+                    .chunks_exact(8)
+                    .take(frames)
+                    .map(|c| f64::from_ne_bytes(c.try_into().unwrap()).to_bits())
+                    .collect();
+                let want: Vec<u64> = want.iter().map(|v| v.to_bits()).collect();
+                let case = format!("{magic:?} tag {tag} {bits}-bit, {frames} frames");
+                assert_eq!(got, want, "{case}");
+                assert_eq!(finite, want_finite, "{case}");
+            }
+        }
     }
 
     #[test]

@@ -145,7 +145,12 @@ fn statistic_cells(s: Option<Stats>) -> Vec<(&'static str, String, &'static str)
 #[derive(Debug, Default)]
 pub struct GroupTable {
     groups: BTreeMap<String, Accumulator>,
+    /// Each group's statistics per measure, once [`GroupTable::compute_stats`] ran.
+    stats: Option<GroupStats>,
 }
+
+/// Each group's [`Stats`] per measure (in [`METRICS`] order), by group name.
+pub type GroupStats = BTreeMap<String, Vec<Option<Stats>>>;
 
 #[derive(Debug, Default)]
 struct Accumulator {
@@ -189,6 +194,40 @@ impl GroupTable {
             .add(r);
     }
 
+    /// Computes every group's statistics, each distinct sample once: with no groups, the row
+    /// over all trials holds the same values as the one group, and its bootstrap is not run
+    /// again. `run` maps the distinct samples to their [`stats`], in order; the caller chooses
+    /// whether in parallel (the samples are independent). [`GroupTable::rows`] then uses them.
+    pub fn compute_stats(&mut self, run: impl FnOnce(&[&[f64]]) -> Vec<Option<Stats>>) {
+        self.stats = Some(self.stats_of_groups(run));
+    }
+
+    fn stats_of_groups(&self, run: impl FnOnce(&[&[f64]]) -> Vec<Option<Stats>>) -> GroupStats {
+        let mut distinct: Vec<&[f64]> = Vec::new();
+        let mut index: BTreeMap<&str, Vec<usize>> = BTreeMap::new();
+        for (g, a) in &self.groups {
+            let at = a
+                .values
+                .iter()
+                .map(|v| match distinct.iter().position(|d| *d == &v[..]) {
+                    Some(k) => k,
+                    None => {
+                        distinct.push(v);
+                        distinct.len() - 1
+                    }
+                });
+            index.insert(g, at.collect());
+        }
+        let computed = run(&distinct);
+        index
+            .into_iter()
+            .map(|(g, at)| {
+                let row = at.iter().map(|&k| computed.get(k).cloned().flatten());
+                (g.to_string(), row.collect())
+            })
+            .collect()
+    }
+
     /// Column names of `groups.csv`.
     pub fn header() -> [&'static str; 5] {
         ["group", "measure", "statistic", "value", "note"]
@@ -198,6 +237,14 @@ impl GroupTable {
     /// group the counts, then each measure's statistics. Cells are made safe for spreadsheets
     /// (group names come from the manifest).
     pub fn rows(&self) -> Vec<[String; 5]> {
+        let computed;
+        let stats_by_group = match &self.stats {
+            Some(s) => s,
+            None => {
+                computed = self.stats_of_groups(|d| d.iter().map(|v| stats(v)).collect());
+                &computed
+            }
+        };
         let mut order: Vec<&String> = self.groups.keys().filter(|g| *g != ALL_GROUPS).collect();
         order.extend(self.groups.keys().filter(|g| *g == ALL_GROUPS));
         let mut rows = Vec::new();
@@ -222,8 +269,9 @@ impl GroupTable {
             for (flag, n) in FLAGS.iter().zip(a.flags) {
                 push(&super::csv::flag_column(*flag), "count", n.to_string(), "");
             }
-            for ((measure, _), values) in METRICS.iter().zip(&a.values) {
-                for (statistic, value, note) in statistic_cells(stats(values)) {
+            let group_stats = stats_by_group.get(g).into_iter().flatten();
+            for ((measure, _), s) in METRICS.iter().zip(group_stats) {
+                for (statistic, value, note) in statistic_cells(s.clone()) {
                     push(measure, statistic, value, note);
                 }
             }
@@ -280,6 +328,27 @@ mod tests {
             ((s.ci_high - s.ci_low) / 2.0 - half).abs() < 0.15 * half,
             "{s:?}"
         );
+    }
+
+    #[test]
+    fn each_distinct_sample_is_bootstrapped_once_and_rows_do_not_change() {
+        let mut t = GroupTable::default();
+        for (i, v) in [80.0, 95.0, 70.0].into_iter().enumerate() {
+            let mut r = TrialRecord::empty(&format!("t{i}"), None);
+            r.loading_ms = Some(v);
+            r.release_ms = Some(v / 10.0);
+            t.add(&r);
+        }
+        let serial = t.rows();
+        let mut samples = 0;
+        t.compute_stats(|d| {
+            samples = d.len();
+            d.iter().map(|v| stats(v)).collect()
+        });
+        // Groups "(none)" and "(all)" hold the same values: 5 measures, of which 3 are empty
+        // and alike, so loading_ms, release_ms and the empty sample.
+        assert_eq!(samples, 3);
+        assert_eq!(t.rows(), serial);
     }
 
     #[test]

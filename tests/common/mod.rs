@@ -47,6 +47,25 @@ pub fn quiet_batch(input: &Path, out: &Path, extra: &[&str]) {
         .success();
 }
 
+/// Runs `batch INPUT --out OUT EXTRA..`.
+pub fn batch_output(input: &Path, out: &Path, extra: &[&str]) -> std::process::Output {
+    bin()
+        .arg("batch")
+        .arg(input)
+        .arg("--out")
+        .arg(out)
+        .args(extra)
+        .output()
+        .unwrap()
+}
+
+/// Runs `batch INPUT --out OUT EXTRA..`, asserts it succeeded and returns its messages.
+pub fn batch_messages(input: &Path, out: &Path, extra: &[&str]) -> String {
+    let o = batch_output(input, out, extra);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
 pub fn read_json(path: &Path) -> Value {
     let text = std::fs::read_to_string(path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
     serde_json::from_str(&text).unwrap_or_else(|e| panic!("{}: {e}", path.display()))

@@ -61,6 +61,7 @@ pub fn split_span(
 ) -> Vec<Piece> {
     let b = levels.window;
     let prefix = prefix_sums(energy, first, last);
+    let blocks = BlockMax::new(energy, first, last);
     let mean =
         |a: usize, c: usize| (prefix[c + 1 - first] - prefix[a - first]) / (c + 1 - a) as f64;
     let mut pieces = Vec::new();
@@ -75,7 +76,7 @@ pub fn split_span(
             i += 1;
             continue;
         }
-        let tail = extrapolate(&current, i, b, levels.noise_energy, energy, &mean);
+        let tail = extrapolate(&current, i, b, levels.noise_energy, energy, &blocks, &mean);
         let excess = energy[i] - tail;
         if energy[i] > levels.margin * tail && excess > level_at(i + 1 - b) - levels.noise_energy {
             current.last = i - b;
@@ -153,15 +154,65 @@ fn extrapolate(
     b: usize,
     noise_energy: f64,
     energy: &[f64],
+    blocks: &BlockMax,
     mean: &impl Fn(usize, usize) -> f64,
 ) -> f64 {
     let end = i - b;
     let start = piece.peak.max(end.saturating_sub(TAIL_FIT_WINDOWS * b));
     let rate = 0.5 * recent_rate(piece, start, end, noise_energy, mean);
-    let above = (start..=end)
-        .map(|s| (energy[s] - noise_energy).max(0.0) * (-rate * (i - s) as f64).exp())
-        .fold(0.0f64, f64::max);
+    // The decay factor is at most 1 (the rate is never negative), so a window whose energy
+    // above the noise is no more than the largest decayed energy so far cannot raise it: its
+    // exponential is skipped, and so is a whole block whose largest energy cannot. Oldest
+    // first: in a decaying tail the oldest windows hold the most energy, and the newer ones
+    // then rarely pass. The same maximum as over every window, to the bit: a rounded product
+    // a x f with f <= 1 never exceeds a, and subtracting the noise keeps order.
+    let mut above = 0.0f64;
+    let mut s = start;
+    while s <= end {
+        let block_end = ((s / TAIL_BLOCK + 1) * TAIL_BLOCK).min(end + 1);
+        if (blocks.at(s) - noise_energy).max(0.0) > above {
+            for (w, &e) in energy.iter().enumerate().take(block_end).skip(s) {
+                let excess = (e - noise_energy).max(0.0);
+                if excess > above {
+                    above = above.max(excess * (-rate * (i - w) as f64).exp());
+                }
+            }
+        }
+        s = block_end;
+    }
     noise_energy + above
+}
+
+/// Samples per block of [`BlockMax`].
+const TAIL_BLOCK: usize = 16;
+
+/// The largest energy of each block of [`TAIL_BLOCK`] samples (aligned on multiples of it)
+/// over a span, so that the tail's search passes over blocks that cannot raise its maximum.
+pub struct BlockMax {
+    /// Index of the first block.
+    first_block: usize,
+    max: Vec<f64>,
+}
+
+impl BlockMax {
+    fn new(energy: &[f64], first: usize, last: usize) -> BlockMax {
+        let first_block = first / TAIL_BLOCK;
+        let max = (first_block..=last / TAIL_BLOCK)
+            .map(|k| {
+                let lo = (k * TAIL_BLOCK).max(first);
+                let hi = ((k + 1) * TAIL_BLOCK).min(last + 1);
+                energy[lo..hi]
+                    .iter()
+                    .fold(f64::NEG_INFINITY, |m, &e| m.max(e))
+            })
+            .collect();
+        BlockMax { first_block, max }
+    }
+
+    /// The largest energy of the block holding sample `s` (within the span).
+    fn at(&self, s: usize) -> f64 {
+        self.max[s / TAIL_BLOCK - self.first_block]
+    }
 }
 
 /// Decay rate of the energy above the noise mean over `start..=end`, from the mean energies
@@ -209,6 +260,36 @@ fn decay_rate(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use rand::{Rng, SeedableRng};
+
+    #[test]
+    fn pruned_extrapolation_equals_the_maximum_over_every_window_to_the_bit() {
+        // Slow reference: the decayed energy of every window, then their maximum.
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(11);
+        for trial in 0..200 {
+            let n = 400;
+            let noise = 1.0;
+            let energy: Vec<f64> = (0..n)
+                .map(|k| noise * rng.gen::<f64>() * 2.0 + 50.0 * (-(k as f64) / 60.0).exp())
+                .collect();
+            let prefix = prefix_sums(&energy, 0, n - 1);
+            let mean = |a: usize, c: usize| (prefix[c + 1] - prefix[a]) / (c + 1 - a) as f64;
+            let b = 1 + trial % 12;
+            let piece = open_piece(&energy, 0, b, None);
+            let blocks = BlockMax::new(&energy, 0, n - 1);
+            for i in (piece.peak + b + 1..n).step_by(7) {
+                let end = i - b;
+                let start = piece.peak.max(end.saturating_sub(TAIL_FIT_WINDOWS * b));
+                let rate = 0.5 * recent_rate(&piece, start, end, noise, &mean);
+                let want = noise
+                    + (start..=end)
+                        .map(|s| (energy[s] - noise).max(0.0) * (-rate * (i - s) as f64).exp())
+                        .fold(0.0f64, f64::max);
+                let got = extrapolate(&piece, i, b, noise, &energy, &blocks, &mean);
+                assert_eq!(got.to_bits(), want.to_bits(), "trial {trial}, i {i}");
+            }
+        }
+    }
 
     /// Trailing energies (window `b`) of the squared envelope `env`.
     fn trailing(env: &[f64], b: usize) -> Vec<f64> {
