@@ -3,11 +3,13 @@
 
 use std::path::{Path, PathBuf};
 
-use crate::decode::{self, DecodedAudio, FrameOptions};
+use crate::decode::{self, video, DecodedAudio, FrameOptions};
 use crate::detect::{self, click::ClickScratch, AudioEvents};
 use crate::error::{Error, Result};
 use crate::measure::{self, AudioInput, ChannelChoice, Flag, TrialRecord};
 use crate::rig::RigProfile;
+use crate::signal::FrameSeries;
+use crate::track;
 
 /// What one trial consists of.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -16,6 +18,8 @@ pub struct TrialSpec {
     pub group: Option<String>,
     pub audio: Option<PathBuf>,
     pub frames: Option<PathBuf>,
+    /// A video to measure the frames from: an image-sequence folder or an AVI file.
+    pub video: Option<PathBuf>,
 }
 
 /// The raw bytes of a trial's inputs, read once (for hashing and decoding alike).
@@ -23,6 +27,9 @@ pub struct TrialSpec {
 pub struct TrialInputs {
     pub audio: Option<Vec<u8>>,
     pub frames: Option<Vec<u8>>,
+    /// The video is decoded from its files as it is measured; only its fingerprint is read
+    /// here ([`video::fingerprint`]).
+    pub video_sha256: Option<String>,
 }
 
 /// Per-worker reusable state (FFT plans, buffers).
@@ -130,15 +137,22 @@ pub fn read_input(path: &Path) -> Result<Vec<u8>> {
 
 /// Reads the files a trial names.
 pub fn read_inputs(spec: &TrialSpec) -> Result<TrialInputs> {
-    if spec.audio.is_none() && spec.frames.is_none() {
+    if spec.audio.is_none() && spec.frames.is_none() && spec.video.is_none() {
         return Err(Error::Usage(format!(
-            "trial {}: neither an audio file nor a frames file is given",
+            "trial {}: neither an audio file nor a frames file nor a video is given",
+            spec.name
+        )));
+    }
+    if spec.frames.is_some() && spec.video.is_some() {
+        return Err(Error::Usage(format!(
+            "trial {}: both a frames file and a video are given; give one",
             spec.name
         )));
     }
     Ok(TrialInputs {
         audio: spec.audio.as_deref().map(read_input).transpose()?,
         frames: spec.frames.as_deref().map(read_input).transpose()?,
+        video_sha256: spec.video.as_deref().map(video::fingerprint).transpose()?,
     })
 }
 
@@ -153,13 +167,121 @@ pub fn analyze(
     rig: &RigProfile,
     scratch: &mut Scratch,
 ) -> TrialRecord {
-    let mut record = match try_analyze(spec, inputs, rig, scratch) {
+    analyze_with_measures(spec, inputs, rig, scratch).0
+}
+
+/// [`analyze`], also giving the per-frame measures of the trial's video (for
+/// `trials/NAME.frames.csv`).
+pub fn analyze_with_measures(
+    spec: &TrialSpec,
+    inputs: &TrialInputs,
+    rig: &RigProfile,
+    scratch: &mut Scratch,
+) -> (TrialRecord, Option<VideoMeasures>) {
+    let mut measures = None;
+    let mut record = match try_analyze(spec, inputs, rig, scratch, &mut measures) {
         Ok(r) => r,
         Err(e) => TrialRecord::failed(&spec.name, spec.group.as_deref(), e.to_string()),
     };
     record.audio_file = path_string(&spec.audio);
     record.frames_file = path_string(&spec.frames);
-    record
+    record.video_file = path_string(&spec.video);
+    (record, measures)
+}
+
+/// A video's per-frame measures with their times (video clock, seconds).
+#[derive(Debug, Clone, PartialEq)]
+pub struct VideoMeasures {
+    pub time_s: Vec<f64>,
+    pub measures: track::Measures,
+}
+
+/// What a trial's video gave: the series for the detectors, the measures and the record's
+/// description of the video.
+struct VideoAnalysis {
+    series: FrameSeries,
+    measures: VideoMeasures,
+    input: track::VideoInput,
+}
+
+/// The rig's video measures settings.
+fn measure_config(rig: &RigProfile) -> track::MeasureConfig {
+    track::MeasureConfig {
+        track_point: rig.track_point.map(|p| (p[0], p[1])),
+        pivot: rig.pivot.map(|p| (p[0], p[1])),
+        rois: rig.rois.clone(),
+    }
+}
+
+/// Decodes and measures a video, and picks the measure for the detectors.
+fn analyse_video(path: &Path, rig: &RigProfile) -> Result<VideoAnalysis> {
+    let info = video::open(path)?.info().clone();
+    let (fps, fps_from) = match (info.container_fps, rig.fps) {
+        (Some(f), _) if f.is_finite() && f > 0.0 => (f, "container"),
+        (_, Some(f)) => (f, "rig"),
+        _ => {
+            return Err(Error::config(
+                "fps",
+                format!(
+                "{}: an image sequence has no frame rate of its own; give the rig's fps or --fps",
+                path.display()
+            ),
+            ))
+        }
+    };
+    let measures = track::measure_video(|| video::open(path), &measure_config(rig))?;
+    let choice = track::choose(&measures, rig.frames_column.as_deref())?;
+    let loading_name = rig.loading_column.as_deref().unwrap_or(&choice.column);
+    let missing = |name: &str| {
+        Error::config(
+            "loading_column",
+            format!("the video measures have no column {name:?}"),
+        )
+    };
+    let motion = track::column(&measures, &choice.column)
+        .ok_or_else(|| missing(&choice.column))?
+        .to_vec();
+    let loading = track::column(&measures, loading_name)
+        .ok_or_else(|| missing(loading_name))?
+        .to_vec();
+    let first = measures.frame_index.first().copied().unwrap_or(0);
+    let index: Vec<i64> = measures.frame_index.iter().map(|i| i - first).collect();
+    let time_s: Vec<f64> = index.iter().map(|&i| i as f64 / fps).collect();
+    let track = measures.track.as_ref();
+    let input = track::VideoInput {
+        format: info.format.clone(),
+        width_px: measures.width,
+        height_px: measures.height,
+        frames_listed: info.frames_listed,
+        frames_decoded: measures.frame_index.len() as u64,
+        fps_from: fps_from.into(),
+        block_px: measures.block_px,
+        measure: choice.column.clone(),
+        measure_reason: choice.reason.clone(),
+        lamp_hz: track::lamp_hz(&measures.gain, fps),
+        track_start_px: track.map(|t| [t.x_px[0], t.y_px[0]]),
+        track_range_px: track.map(|t| t.range_px),
+        track_lost_frame: track
+            .and_then(|t| t.lost_at)
+            .and_then(|i| measures.frame_index.get(i).copied()),
+    };
+    let rows = index.len() as u64;
+    let series = FrameSeries {
+        time_s: time_s.clone(),
+        frame_index: Some(index),
+        motion,
+        loading,
+        motion_column: choice.column.clone(),
+        loading_column: loading_name.to_string(),
+        timestamps_given: false,
+        row_index: (0..rows).collect(),
+        ..FrameSeries::default()
+    };
+    Ok(VideoAnalysis {
+        series,
+        measures: VideoMeasures { time_s, measures },
+        input,
+    })
 }
 
 fn try_analyze(
@@ -167,6 +289,7 @@ fn try_analyze(
     inputs: &TrialInputs,
     rig: &RigProfile,
     scratch: &mut Scratch,
+    measures_out: &mut Option<VideoMeasures>,
 ) -> Result<TrialRecord> {
     // The rig's channel (the first one, for `auto`) is decoded first, so that a trial whose
     // files are both unreadable reports its audio.
@@ -183,12 +306,17 @@ fn try_analyze(
         )),
         _ => None,
     };
-    let frames = match (&spec.frames, &inputs.frames) {
-        (Some(path), Some(bytes)) => Some(decode::decode_frames(
+    let mut video = match &spec.video {
+        Some(path) => Some(analyse_video(path, rig)?),
+        None => None,
+    };
+    let frames = match (&spec.frames, &inputs.frames, video.as_mut()) {
+        (Some(path), Some(bytes), _) => Some(decode::decode_frames(
             path,
             bytes,
             &FrameOptions::from(rig),
         )?),
+        (_, _, Some(v)) => Some(std::mem::take(&mut v.series)),
         _ => None,
     };
     let mut video_events = frames.as_ref().map(|f| detect::detect_video(f, rig));
@@ -226,6 +354,14 @@ fn try_analyze(
         if f.input.dropped_rows > 0 {
             record.add_flags([Flag::FramesDroppedCells]);
         }
+    }
+    if let Some(v) = video {
+        record.frames_input = None;
+        if v.measures.measures.track_lost {
+            record.add_flags([Flag::TrackLost]);
+        }
+        record.video_input = Some(v.input);
+        *measures_out = Some(v.measures);
     }
     Ok(record)
 }
@@ -332,6 +468,7 @@ pub fn analyze_files(spec: &TrialSpec, rig: &RigProfile, scratch: &mut Scratch) 
             let mut r = TrialRecord::failed(&spec.name, spec.group.as_deref(), e.to_string());
             r.audio_file = path_string(&spec.audio);
             r.frames_file = path_string(&spec.frames);
+            r.video_file = path_string(&spec.video);
             r
         }
     }
