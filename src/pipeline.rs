@@ -230,20 +230,18 @@ fn analyse_video(path: &Path, rig: &RigProfile) -> Result<VideoAnalysis> {
         }
     };
     let measures = track::measure_video(|| video::open(path), &measure_config(rig))?;
-    let choice = track::choose(&measures, rig.frames_column.as_deref())?;
-    let loading_name = rig.loading_column.as_deref().unwrap_or(&choice.column);
-    let missing = |name: &str| {
-        Error::config(
-            "loading_column",
-            format!("the video measures have no column {name:?}"),
-        )
+    let choices = track::choose(
+        &measures,
+        rig.frames_column.as_deref(),
+        rig.loading_column.as_deref(),
+    )?;
+    let values = |name: &str| {
+        track::column(&measures, name)
+            .map(<[f64]>::to_vec)
+            .ok_or_else(|| Error::config("frames_column", format!("no video measure {name:?}")))
     };
-    let motion = track::column(&measures, &choice.column)
-        .ok_or_else(|| missing(&choice.column))?
-        .to_vec();
-    let loading = track::column(&measures, loading_name)
-        .ok_or_else(|| missing(loading_name))?
-        .to_vec();
+    let motion = values(&choices.motion.column)?;
+    let loading = values(&choices.loading.column)?;
     let first = measures.frame_index.first().copied().unwrap_or(0);
     let index: Vec<i64> = measures.frame_index.iter().map(|i| i - first).collect();
     let time_s: Vec<f64> = index.iter().map(|&i| i as f64 / fps).collect();
@@ -256,8 +254,10 @@ fn analyse_video(path: &Path, rig: &RigProfile) -> Result<VideoAnalysis> {
         frames_decoded: measures.frame_index.len() as u64,
         fps_from: fps_from.into(),
         block_px: measures.block_px,
-        measure: choice.column.clone(),
-        measure_reason: choice.reason.clone(),
+        measure: choices.motion.column.clone(),
+        measure_reason: choices.motion.reason.clone(),
+        loading_measure: choices.loading.column.clone(),
+        loading_measure_reason: choices.loading.reason.clone(),
         lamp_hz: track::lamp_hz(&measures.gain, fps),
         track_start_px: track.map(|t| [t.x_px[0], t.y_px[0]]),
         track_range_px: track.map(|t| t.range_px),
@@ -271,8 +271,8 @@ fn analyse_video(path: &Path, rig: &RigProfile) -> Result<VideoAnalysis> {
         frame_index: Some(index),
         motion,
         loading,
-        motion_column: choice.column.clone(),
-        loading_column: loading_name.to_string(),
+        motion_column: choices.motion.column,
+        loading_column: choices.loading.column,
         timestamps_given: false,
         row_index: (0..rows).collect(),
         ..FrameSeries::default()

@@ -34,6 +34,42 @@ impl Plane {
         top + fy * (bottom - top)
     }
 
+    /// The (2 half + 1)^2 window centred on (cx, cy), bilinearly sampled, into `out`. Every
+    /// pixel of the window shares one fractional offset, so the weights are computed once;
+    /// windows that overhang the edge take the border-repeating [`Plane::sample`].
+    fn window(&self, cx: f32, cy: f32, half: usize, out: &mut Vec<f32>) {
+        let side = 2 * half + 1;
+        out.clear();
+        let (x0, y0) = (cx - half as f32, cy - half as f32);
+        let (fx0, fy0) = (x0.floor(), y0.floor());
+        let (fx, fy) = (x0 - fx0, y0 - fy0);
+        let inside = fx0 >= 0.0
+            && fy0 >= 0.0
+            && (fx0 as usize + side) < self.width
+            && (fy0 as usize + side) < self.height;
+        if !inside {
+            for dy in 0..side {
+                for dx in 0..side {
+                    out.push(self.sample(x0 + dx as f32, y0 + dy as f32));
+                }
+            }
+            return;
+        }
+        let (w00, w10) = ((1.0 - fx) * (1.0 - fy), fx * (1.0 - fy));
+        let (w01, w11) = ((1.0 - fx) * fy, fx * fy);
+        let (ix, iy) = (fx0 as usize, fy0 as usize);
+        let w = self.width;
+        for row in 0..side {
+            let top = &self.data[(iy + row) * w + ix..(iy + row) * w + ix + side + 1];
+            let bottom = &self.data[(iy + row + 1) * w + ix..(iy + row + 1) * w + ix + side + 1];
+            for col in 0..side {
+                out.push(
+                    w00 * top[col] + w10 * top[col + 1] + w01 * bottom[col] + w11 * bottom[col + 1],
+                );
+            }
+        }
+    }
+
     /// Half-size image: smoothed with the binomial kernel [1 4 6 4 1]/16 along each axis
     /// (Burt and Adelson's pyramid; edges repeat) and every other pixel kept, so that detail
     /// finer than the coarser level can hold does not alias into it.
@@ -187,13 +223,12 @@ impl Default for LkConfig {
 /// Follows the point `p` (full-resolution pixels) from `prev` to `next`; `None` when it is
 /// lost (left the image, no texture, or the windows no longer match).
 pub fn track(prev: &Pyramid, next: &Pyramid, p: (f32, f32), cfg: &LkConfig) -> Option<(f32, f32)> {
-    let r = cfg.half_window as isize;
+    let r = cfg.half_window;
+    let side = 2 * r + 1;
     let n_levels = prev.levels.len().min(next.levels.len());
     let mut guess = (0.0f32, 0.0f32);
-    let side = (2 * r + 1) as usize;
-    let mut tpl = vec![0.0f32; side * side];
-    let mut ix = vec![0.0f32; side * side];
-    let mut iy = vec![0.0f32; side * side];
+    let (mut wide, mut tpl, mut ix, mut iy, mut cur) =
+        (Vec::new(), Vec::new(), Vec::new(), Vec::new(), Vec::new());
     for level in (0..n_levels).rev() {
         let scale = (1u32 << level) as f32;
         let (a, b) = (&prev.levels[level], &next.levels[level]);
@@ -205,18 +240,24 @@ pub fn track(prev: &Pyramid, next: &Pyramid, p: (f32, f32), cfg: &LkConfig) -> O
         if !inside(a, px, py) {
             return None;
         }
+        // The template and its central-difference gradients, from one window a pixel wider.
+        a.window(px, py, r + 1, &mut wide);
+        let ws = side + 2;
+        tpl.clear();
+        ix.clear();
+        iy.clear();
         let (mut gxx, mut gxy, mut gyy) = (0.0f32, 0.0f32, 0.0f32);
-        let mut i = 0;
-        for dy in -r..=r {
-            for dx in -r..=r {
-                let (x, y) = (px + dx as f32, py + dy as f32);
-                tpl[i] = a.sample(x, y);
-                ix[i] = 0.5 * (a.sample(x + 1.0, y) - a.sample(x - 1.0, y));
-                iy[i] = 0.5 * (a.sample(x, y + 1.0) - a.sample(x, y - 1.0));
-                gxx += ix[i] * ix[i];
-                gxy += ix[i] * iy[i];
-                gyy += iy[i] * iy[i];
-                i += 1;
+        for y in 1..=side {
+            for x in 1..=side {
+                let i = y * ws + x;
+                let gx = 0.5 * (wide[i + 1] - wide[i - 1]);
+                let gy = 0.5 * (wide[i + ws] - wide[i - ws]);
+                tpl.push(wide[i]);
+                ix.push(gx);
+                iy.push(gy);
+                gxx += gx * gx;
+                gxy += gx * gy;
+                gyy += gy * gy;
             }
         }
         let det = gxx * gyy - gxy * gxy;
@@ -229,15 +270,12 @@ pub fn track(prev: &Pyramid, next: &Pyramid, p: (f32, f32), cfg: &LkConfig) -> O
             if !inside(b, qx, qy) {
                 return None;
             }
+            b.window(qx, qy, r, &mut cur);
             let (mut bx, mut by) = (0.0f32, 0.0f32);
-            let mut i = 0;
-            for dy in -r..=r {
-                for dx in -r..=r {
-                    let diff = tpl[i] - b.sample(qx + dx as f32, qy + dy as f32);
-                    bx += diff * ix[i];
-                    by += diff * iy[i];
-                    i += 1;
-                }
+            for i in 0..cur.len() {
+                let diff = tpl[i] - cur[i];
+                bx += diff * ix[i];
+                by += diff * iy[i];
             }
             let step = ((gyy * bx - gxy * by) / det, (gxx * by - gxy * bx) / det);
             d = (d.0 + step.0, d.1 + step.1);
@@ -256,25 +294,20 @@ pub fn track(prev: &Pyramid, next: &Pyramid, p: (f32, f32), cfg: &LkConfig) -> O
 
 /// Whether the windows around `p` in `a` and `q` in `b` still match.
 fn residual_ok(a: &Plane, b: &Plane, p: (f32, f32), q: (f32, f32), cfg: &LkConfig) -> bool {
-    let r = cfg.half_window as isize;
+    let r = cfg.half_window;
     // The point must stay a half window inside the picture for its window to be real pixels.
     let m = r as f32;
     if q.0 < m || q.1 < m || q.0 > (b.width - 1) as f32 - m || q.1 > (b.height - 1) as f32 - m {
         return false;
     }
-    let n = ((2 * r + 1) * (2 * r + 1)) as f32;
-    let mut vals = Vec::with_capacity(n as usize);
-    let mut diff = 0.0f32;
-    for dy in -r..=r {
-        for dx in -r..=r {
-            let va = a.sample(p.0 + dx as f32, p.1 + dy as f32);
-            vals.push(va);
-            diff += (va - b.sample(q.0 + dx as f32, q.1 + dy as f32)).abs();
-        }
-    }
-    let mean = vals.iter().sum::<f32>() / n;
-    let spread = vals.iter().map(|v| (v - mean).abs()).sum::<f32>() / n;
-    diff / n <= cfg.max_residual * spread.max(1e-6)
+    let (mut wa, mut wb) = (Vec::new(), Vec::new());
+    a.window(p.0, p.1, r, &mut wa);
+    b.window(q.0, q.1, r, &mut wb);
+    let n = wa.len() as f32;
+    let mean = wa.iter().sum::<f32>() / n;
+    let spread = wa.iter().map(|v| (v - mean).abs()).sum::<f32>() / n;
+    let diff = wa.iter().zip(&wb).map(|(x, y)| (x - y).abs()).sum::<f32>() / n;
+    diff <= cfg.max_residual * spread.max(1e-6)
 }
 
 #[cfg(test)]

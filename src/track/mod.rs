@@ -8,12 +8,15 @@
 //! where the picture changes come; the second pass tracks points in the part of the picture
 //! that changes most. Memory grows with the number of frames only by the block means.
 //!
-//! Which measure feeds the detectors (the rule, [`choose`]): a column the rig names
-//! (`frames_column`); else the tracked point when it was followed through every frame and its
-//! path spans at least one block (the part moves further than the block stack can follow in
-//! proportion); else the principal component. A point named by the rig or lost by the tracker
-//! after moving a block or more falls back to the principal component with the flag
-//! `track_lost`.
+//! Which measures feed the detectors (the rule, [`choose`]): the columns the rig names
+//! (`frames_column`, `loading_column`); else, for the motion (release, peak, oscillation), the
+//! tracked point when it was followed through every frame and moved at least
+//! [`MIN_TRACK_PX`], and the principal component otherwise; for the loading onset, the
+//! tracked point only when its path spans at least one block (the part moves further than the
+//! block stack follows in proportion), else the principal component, which is less noisy
+//! than one point for a slow, small drift. A named point that is lost, or a found one lost
+//! after moving a block or more while no kept point moved as far, falls back to the principal
+//! component with the flag `track_lost`.
 
 pub mod lk;
 pub mod stack;
@@ -48,7 +51,7 @@ pub struct MeasureConfig {
 }
 
 /// Corners tracked when no point is named.
-const AUTO_POINTS: usize = 24;
+const AUTO_POINTS: usize = 12;
 /// Pyramid levels (3 halvings: a 15-pixel window follows about 50 pixels a frame).
 const LEVELS: usize = 4;
 
@@ -452,9 +455,13 @@ pub struct VideoInput {
     pub fps_from: String,
     /// Edge of the blocks of the principal-component stack, pixels.
     pub block_px: usize,
-    /// The measure column that fed the detectors, and why ([`choose`]).
+    /// The measure column that fed the release, motion peak and oscillation detectors, and
+    /// why ([`choose`]).
     pub measure: String,
     pub measure_reason: String,
+    /// The measure column that fed the loading-onset detector, and why.
+    pub loading_measure: String,
+    pub loading_measure_reason: String,
     /// The lamp's flicker frequency found in the per-frame gain, Hz ([`lamp_hz`]).
     pub lamp_hz: Option<f64>,
     /// Where the tracked point started (x, y pixels), how far it moved along its main axis,
@@ -473,59 +480,91 @@ pub struct Choice {
     pub reason: String,
 }
 
-/// Applies the rule of the module docs.
-pub fn choose(m: &Measures, named_column: Option<&str>) -> Result<Choice> {
-    if let Some(name) = named_column {
-        if column(m, name).is_none() {
-            return Err(Error::config(
-                "frames_column",
-                format!("the video measures have no column {name:?}"),
-            ));
-        }
-        return Ok(Choice {
-            column: name.to_string(),
-            reason: "named by the rig profile or --column".into(),
-        });
-    }
-    let block = m.block_px as f64;
-    if let Some(t) = m.track.as_ref().filter(|t| t.lost_at.is_none()) {
-        let column = if m.angle_rad.is_some() {
-            "angle_rad"
-        } else {
-            "track_px"
-        };
-        if m.track_named {
-            return Ok(Choice {
-                column: column.into(),
-                reason: "the named point, followed through every frame".into(),
-            });
-        }
-        if t.range_px >= block {
-            return Ok(Choice {
-                column: column.into(),
-                reason: format!(
-                    "a tracked point moved {:.1} px, at least one block ({block} px): a motion \
-                     larger than the block stack follows in proportion",
-                    t.range_px
-                ),
-            });
-        }
-        return Ok(Choice {
-            column: "pca1".into(),
-            reason: format!(
-                "the furthest tracked point moved {:.1} px, less than one block ({block} px)",
-                t.range_px
-            ),
-        });
+/// Smallest path, pixels, for a found point to count as the moving part rather than a still
+/// corner (a point followed at a twentieth of a pixel moves a pixel only with the part).
+pub const MIN_TRACK_PX: f64 = 1.0;
+
+/// The measures for the motion (release, motion peak, oscillation) and for the loading onset.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Choices {
+    pub motion: Choice,
+    pub loading: Choice,
+}
+
+fn named(m: &Measures, field: &str, name: &str) -> Result<Choice> {
+    if column(m, name).is_none() {
+        return Err(Error::config(
+            field,
+            format!("the video measures have no column {name:?}"),
+        ));
     }
     Ok(Choice {
-        column: "pca1".into(),
-        reason: if m.track_lost {
-            "the tracked point was lost: the principal component instead".into()
-        } else {
-            "no point could be followed through every frame".into()
-        },
+        column: name.to_string(),
+        reason: format!("named by the rig profile's {field} or the command line"),
     })
+}
+
+/// Applies the rule of the module docs.
+pub fn choose(
+    m: &Measures,
+    named_motion: Option<&str>,
+    named_loading: Option<&str>,
+) -> Result<Choices> {
+    let block = m.block_px as f64;
+    let track_column = if m.angle_rad.is_some() {
+        "angle_rad"
+    } else {
+        "track_px"
+    };
+    let kept = m
+        .track
+        .as_ref()
+        .filter(|t| t.lost_at.is_none() && !m.track_lost);
+    let moving = kept.filter(|t| m.track_named || t.range_px >= MIN_TRACK_PX);
+    let motion = match (named_motion, moving) {
+        (Some(name), _) => named(m, "frames_column", name)?,
+        (None, Some(t)) => Choice {
+            column: track_column.into(),
+            reason: format!(
+                "a point followed through every frame{}, moving {:.1} px",
+                if m.track_named {
+                    " (the named one)"
+                } else {
+                    ""
+                },
+                t.range_px
+            ),
+        },
+        (None, None) => {
+            Choice {
+                column: "pca1".into(),
+                reason: if m.track_lost {
+                    "the tracked point was lost: the principal component instead".into()
+                } else {
+                    format!("no point moving {MIN_TRACK_PX} px or more was followed through every frame")
+                },
+            }
+        }
+    };
+    let loading = match (named_loading, moving) {
+        (Some(name), _) => named(m, "loading_column", name)?,
+        (None, Some(t)) if t.range_px >= block && motion.column == track_column => Choice {
+            column: track_column.into(),
+            reason: format!(
+                "the part moves {:.1} px, at least one block ({block} px): further than the \
+                 block stack follows in proportion",
+                t.range_px
+            ),
+        },
+        (None, _) => Choice {
+            column: "pca1".into(),
+            reason: format!(
+                "the motion is smaller than one block ({block} px): the principal component, \
+                 which averages every block the loading moves"
+            ),
+        },
+    };
+    Ok(Choices { motion, loading })
 }
 
 /// The values of a measure column by name.
