@@ -213,6 +213,16 @@ fn measure_config(rig: &RigProfile) -> track::MeasureConfig {
     }
 }
 
+/// Decodes and measures a video alone (the `frames` command): its per-frame measures and how
+/// it was read.
+pub fn measure_video_file(
+    path: &Path,
+    rig: &RigProfile,
+) -> Result<(VideoMeasures, track::VideoInput)> {
+    let v = analyse_video(path, rig)?;
+    Ok((v.measures, v.input))
+}
+
 /// Decodes and measures a video, and picks the measure for the detectors.
 fn analyse_video(path: &Path, rig: &RigProfile) -> Result<VideoAnalysis> {
     let info = video::open(path)?.info().clone();

@@ -327,6 +327,8 @@ fn a_campaign_folder_of_image_sequences_writes_records_and_measures_csvs() {
     let input = dir.path().join("campaign");
     let scene = synth::video::Scene::default();
     render_trial(&input.join("t01"), &scene, 2000.0, 11);
+    // The camera dropped frame 100.
+    std::fs::remove_file(input.join("t01/bar_00100.pgm")).unwrap();
     // A folder of a few figures is not a trial.
     std::fs::create_dir_all(input.join("figures")).unwrap();
     std::fs::write(input.join("figures/plot1.png"), b"x").unwrap();
@@ -339,8 +341,14 @@ fn a_campaign_folder_of_image_sequences_writes_records_and_measures_csvs() {
         .success();
     let record: Value =
         serde_json::from_slice(&std::fs::read(out.join("trials/t01.json")).unwrap()).unwrap();
-    assert_eq!(record["status"], "ok", "{record}");
+    assert_ne!(record["status"], "error", "{record}");
     assert!(record["video_file"].as_str().unwrap().ends_with("t01"));
+    assert_eq!(record["missing_frames"], 1, "{record}");
+    assert!(record["flags"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .any(|f| f == "frame_gaps"));
     assert!(!out.join("trials/figures.json").exists());
     let csv = out.join("trials/t01.frames.csv");
     let text = std::fs::read_to_string(&csv).unwrap();
@@ -378,4 +386,99 @@ fn an_image_sequence_without_a_frame_rate_is_an_error_record_saying_so() {
         record["error"].as_str().unwrap().contains("--fps"),
         "{record}"
     );
+}
+
+#[test]
+fn frames_command_writes_the_measures_of_an_avi_at_its_own_rate() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("m.csv");
+    common::bin()
+        .arg("frames")
+        .arg(data("gradient-32x24-12frames-500fps-ffmpeg-raw-gray.avi"))
+        .arg("--out")
+        .arg(&out)
+        .assert()
+        .success();
+    let text = std::fs::read_to_string(&out).unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    assert!(
+        lines[0].starts_with("frame,time_s,gain,pca1"),
+        "{}",
+        lines[0]
+    );
+    assert_eq!(lines.len(), 13);
+    // Frame 5 at 500 fps: 10 ms.
+    assert!(lines[6].starts_with("5,0.010000000,"), "{}", lines[6]);
+}
+
+#[test]
+fn a_named_point_and_pivot_give_the_angle_and_a_named_region_its_mean() {
+    let dir = tempfile::tempdir().unwrap();
+    let video_dir = dir.path().join("bar");
+    let fps = 2000.0;
+    let scene = synth::video::Scene::default();
+    let truth = render_trial(&video_dir, &scene, fps, 5);
+    // A dark band's edge 56 px along the bar from the pivot (40, 60), bar held at -0.25 rad.
+    let point = "94.26,46.15";
+    let out = common::bin()
+        .args([
+            "trial", "--format", "json", "--fps", "2000", "--pivot", "40,60",
+        ])
+        .args(["--track", point, "--video"])
+        .arg(&video_dir)
+        .output()
+        .unwrap();
+    let record = json_of(&out.stdout);
+    assert_eq!(record["video_input"]["measure"], "angle_rad", "{record}");
+    let release = record["latch_release_video_s"].as_f64().unwrap();
+    let want = truth.latch_release_s.unwrap();
+    assert!((release - want).abs() * fps <= 1.0, "{release} vs {want}");
+    let out = common::bin()
+        .args([
+            "frames", "--fps", "2000", "--pivot", "40,60", "--track", point,
+        ])
+        .args(["--roi", "corner=0,0,20,20"])
+        .arg(&video_dir)
+        .output()
+        .unwrap();
+    let text = String::from_utf8(out.stdout).unwrap();
+    let mut lines = text.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    assert_eq!(header[7..], ["angle_rad", "roi_corner"]);
+    let first: Vec<f64> = lines
+        .next()
+        .unwrap()
+        .split(',')
+        .map(|c| c.parse().unwrap())
+        .collect();
+    // The held angle as rendered, to the point's placement (a hundredth of a radian).
+    assert!((first[7] + 0.25).abs() < 0.01, "{}", first[7]);
+    assert!(first[8] > 0.0 && first[8] < 255.0);
+}
+
+#[test]
+fn a_named_point_the_bar_sweeps_over_is_lost_and_flagged() {
+    let dir = tempfile::tempdir().unwrap();
+    let video_dir = dir.path().join("bar");
+    render_trial(&video_dir, &synth::video::Scene::default(), 2000.0, 5);
+    // Background 50 px from the pivot at +0.1 rad: inside the arc the bar sweeps.
+    let out = common::bin()
+        .args([
+            "trial",
+            "--format",
+            "json",
+            "--fps",
+            "2000",
+            "--track",
+            "89.75,64.99",
+        ])
+        .arg("--video")
+        .arg(&video_dir)
+        .output()
+        .unwrap();
+    let record = json_of(&out.stdout);
+    assert_eq!(record["video_input"]["measure"], "pca1", "{record}");
+    let flags = record["flags"].as_array().unwrap();
+    assert!(flags.iter().any(|f| f == "track_lost"), "{record}");
+    assert!(record["video_input"]["track_lost_frame"].as_i64().is_some());
 }

@@ -42,6 +42,8 @@ enum Command {
     Trial(TrialArgs),
     /// Analyse every trial of a folder or manifest into an output folder.
     Batch(BatchArgs),
+    /// Measure a video (image-sequence folder or AVI) and write its per-frame measures as CSV.
+    Frames(FramesArgs),
     /// Rebuild summary.csv and groups.csv of an output folder from its records.
     Summarize(SummarizeArgs),
     /// Write the review page report.html and per-trial figures for an output folder.
@@ -232,6 +234,17 @@ struct TrialArgs {
     /// Output format.
     #[arg(long, value_enum, default_value_t = Format::Text)]
     format: Format,
+}
+
+#[derive(Args, Debug)]
+struct FramesArgs {
+    /// The video: a folder holding one image sequence, or an AVI file.
+    video: PathBuf,
+    /// CSV file to write (default: standard output).
+    #[arg(long)]
+    out: Option<PathBuf>,
+    #[command(flatten)]
+    rig: RigArgs,
 }
 
 #[derive(Args, Debug)]
@@ -439,6 +452,7 @@ pub fn run() -> ExitCode {
     match cli.command {
         Command::Trial(args) => run_trial(args),
         Command::Batch(args) => campaign::run_batch(args),
+        Command::Frames(args) => run_frames(args),
         Command::Summarize(args) => {
             let GroupBy::Group = args.by;
             campaign::run_summarize(&args.dir)
@@ -485,6 +499,28 @@ fn run_trial(args: TrialArgs) -> ExitCode {
         ExitCode::from(EXIT_TRIAL_FAILED)
     } else {
         ExitCode::SUCCESS
+    }
+}
+
+fn run_frames(args: FramesArgs) -> ExitCode {
+    let rig = match args.rig.profile() {
+        Ok(r) => r,
+        Err(e) => return fail(EXIT_USAGE, e),
+    };
+    let measures = match pipeline::measure_video_file(&args.video, &rig) {
+        Ok((m, _)) => m,
+        Err(e) => return fail(EXIT_TRIAL_FAILED, e),
+    };
+    let text = report::measures::measures_csv(&measures);
+    match &args.out {
+        Some(path) => match crate::batch::atomic::write_atomic(path, text.as_bytes()) {
+            Ok(()) => ExitCode::SUCCESS,
+            Err(e) => fail(EXIT_TRIAL_FAILED, e),
+        },
+        None => {
+            print!("{text}");
+            ExitCode::SUCCESS
+        }
     }
 }
 

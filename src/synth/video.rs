@@ -27,6 +27,10 @@ pub struct Scene {
     pub noise_grey: f64,
     /// Lamp flicker: frequency (Hz) and depth (gain 1 +- depth).
     pub flicker: Option<(f64, f64)>,
+    /// Exposure as a share of the frame period (0: none; 0.5: a 180-degree shutter). The
+    /// exposure is centred on the frame's time, and the bar is drawn at 8 angles across it,
+    /// interpolated between frames: motion blur.
+    pub shutter: f64,
     pub seed: u64,
 }
 
@@ -43,6 +47,7 @@ impl Default for Scene {
             swing_rad: 30f64.to_radians(),
             noise_grey: 2.0,
             flicker: None,
+            shutter: 0.0,
             seed: 1,
         }
     }
@@ -137,6 +142,25 @@ pub fn angles(trial: &SynthTrial, scene: &Scene) -> Vec<(usize, f64, f64)> {
         .collect()
 }
 
+/// Sub-frame angles across a centred exposure of `shutter` frame periods at frame `i`,
+/// interpolated linearly between the frames' angles.
+fn exposure_angles(angles: &[(usize, f64, f64)], i: usize, shutter: f64) -> Vec<f64> {
+    const SUB: usize = 8;
+    let at = |pos: f64| {
+        let last = angles.len().saturating_sub(1);
+        let p = pos.clamp(0.0, last as f64);
+        let (j, f) = (p.floor() as usize, p - p.floor());
+        let next = angles[(j + 1).min(last)].2;
+        angles[j].2 * (1.0 - f) + next * f
+    };
+    if shutter <= 0.0 {
+        return vec![angles[i].2];
+    }
+    (0..SUB)
+        .map(|s| at(i as f64 + shutter * ((s as f64 + 0.5) / SUB as f64 - 0.5)))
+        .collect()
+}
+
 /// Renders every frame of `trial`: (frame index, grey levels clamped to 0-255).
 pub fn render(trial: &SynthTrial, scene: &Scene) -> impl Iterator<Item = (usize, Vec<f32>)> {
     let bg = background(scene);
@@ -144,11 +168,20 @@ pub fn render(trial: &SynthTrial, scene: &Scene) -> impl Iterator<Item = (usize,
     // None only for a spread that is not a number: no noise then.
     let noise = Normal::new(0.0, scene.noise_grey.max(0.0)).ok();
     let scene = scene.clone();
-    angles(trial, &scene).into_iter().map(move |(k, t, a)| {
+    let angles = angles(trial, &scene);
+    (0..angles.len()).map(move |i| {
+        let (k, t, _) = angles[i];
         let gain = scene.flicker.map_or(1.0, |(hz, depth)| {
             1.0 + depth * (std::f64::consts::TAU * hz * t).sin()
         });
-        let img = draw(&scene, &bg, a)
+        let subs = exposure_angles(&angles, i, scene.shutter);
+        let mut img = vec![0.0f32; bg.len()];
+        for a in &subs {
+            for (o, v) in img.iter_mut().zip(draw(&scene, &bg, *a)) {
+                *o += v / subs.len() as f32;
+            }
+        }
+        let img = img
             .into_iter()
             .map(|v| {
                 let n = noise.map_or(0.0, |d| d.sample(&mut rng));

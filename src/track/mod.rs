@@ -52,6 +52,9 @@ pub struct MeasureConfig {
 
 /// Corners tracked when no point is named.
 const AUTO_POINTS: usize = 12;
+/// Blocks whose temporal spread reaches this share of the largest make the region the tracker
+/// works in: every block the part passes, not only those it covers longest.
+const CROP_SHARE: f64 = 0.1;
 /// Pyramid levels (3 halvings: a 15-pixel window follows about 50 pixels a frame).
 const LEVELS: usize = 4;
 
@@ -228,7 +231,7 @@ impl TrackPlan {
     fn new(grid: &Grid, spread: &[f64], first: &Plane, gain: &[f64], cfg: &MeasureConfig) -> Self {
         let top = spread.iter().copied().fold(0.0, f64::max);
         let moving: Vec<usize> = (0..spread.len())
-            .filter(|&b| top > 0.0 && spread[b] >= 0.5 * top)
+            .filter(|&b| top > 0.0 && spread[b] >= CROP_SHARE * top)
             .collect();
         let (mut x0, mut y0, mut x1, mut y1) = (usize::MAX, usize::MAX, 0, 0);
         for &b in &moving {
@@ -556,12 +559,16 @@ pub fn choose(
                 t.range_px
             ),
         },
-        (None, _) => Choice {
+        (None, Some(_)) => Choice {
             column: "pca1".into(),
             reason: format!(
                 "the motion is smaller than one block ({block} px): the principal component, \
                  which averages every block the loading moves"
             ),
+        },
+        (None, None) => Choice {
+            column: "pca1".into(),
+            reason: "no point was followed through every frame".into(),
         },
     };
     Ok(Choices { motion, loading })
