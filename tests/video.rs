@@ -334,7 +334,7 @@ fn a_campaign_folder_of_image_sequences_writes_records_and_measures_csvs() {
     std::fs::write(input.join("figures/plot1.png"), b"x").unwrap();
     let out = dir.path().join("out");
     common::bin()
-        .args(["batch", "--quiet", "--fps", "2000", "--out"])
+        .args(["batch", "--quiet", "--report", "--fps", "2000", "--out"])
         .arg(&out)
         .arg(&input)
         .assert()
@@ -350,6 +350,9 @@ fn a_campaign_folder_of_image_sequences_writes_records_and_measures_csvs() {
         .iter()
         .any(|f| f == "frame_gaps"));
     assert!(!out.join("trials/figures.json").exists());
+    // The review figure draws the measure from the CSV beside the record.
+    let figure = std::fs::read_to_string(out.join("plots/t01.svg")).unwrap();
+    assert!(figure.contains("<path") || figure.contains("<polyline"));
     let csv = out.join("trials/t01.frames.csv");
     let text = std::fs::read_to_string(&csv).unwrap();
     assert!(text.starts_with("frame,time_s,gain,pca1,track_x_px,track_y_px,track_px\n"));
