@@ -355,3 +355,117 @@ impl FrameSource for AviSource {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn chunk(id: &[u8; 4], body: &[u8]) -> Vec<u8> {
+        let mut out = id.to_vec();
+        out.extend((body.len() as u32).to_le_bytes());
+        out.extend(body);
+        if body.len() % 2 == 1 {
+            out.push(0);
+        }
+        out
+    }
+
+    fn list(kind: &[u8; 4], body: &[u8]) -> Vec<u8> {
+        let mut inner = kind.to_vec();
+        inner.extend(body);
+        chunk(b"LIST", &inner)
+    }
+
+    fn riff(kind: &[u8; 4], body: &[u8]) -> Vec<u8> {
+        let mut inner = kind.to_vec();
+        inner.extend(body);
+        chunk(b"RIFF", &inner)
+    }
+
+    /// A 2 x 2 8-bit grey AVI at 250 fps: frame 0 inside a `rec ` list, frame 1 an empty
+    /// (dropped) chunk, frame 2, then frame 3 in an OpenDML `AVIX` continuation.
+    fn opendml_avi() -> Vec<u8> {
+        let mut avih = vec![0u8; 56];
+        avih[0..4].copy_from_slice(&4000u32.to_le_bytes());
+        let mut strh = vec![0u8; 56];
+        strh[0..4].copy_from_slice(b"vids");
+        strh[4..8].copy_from_slice(b"Y800");
+        strh[20..24].copy_from_slice(&1u32.to_le_bytes());
+        strh[24..28].copy_from_slice(&250u32.to_le_bytes());
+        let mut strf = vec![0u8; 40];
+        strf[0..4].copy_from_slice(&40u32.to_le_bytes());
+        strf[4..8].copy_from_slice(&2u32.to_le_bytes());
+        strf[8..12].copy_from_slice(&2u32.to_le_bytes());
+        strf[14..16].copy_from_slice(&8u16.to_le_bytes());
+        strf[16..20].copy_from_slice(b"Y800");
+        let strl = list(
+            b"strl",
+            &[chunk(b"strh", &strh), chunk(b"strf", &strf)].concat(),
+        );
+        let hdrl = list(b"hdrl", &[chunk(b"avih", &avih), strl].concat());
+        let rec = list(b"rec ", &chunk(b"00dc", &[0, 1, 2, 3]));
+        let movi = list(
+            b"movi",
+            &[
+                rec,
+                chunk(b"01wb", &[9; 5]),
+                chunk(b"00dc", &[]),
+                chunk(b"00dc", &[20, 21, 22, 23]),
+            ]
+            .concat(),
+        );
+        let first = riff(b"AVI ", &[hdrl, chunk(b"JUNK", &[0; 3]), movi].concat());
+        let second = riff(b"AVIX", &list(b"movi", &chunk(b"00dc", &[30, 31, 32, 33])));
+        [first, second].concat()
+    }
+
+    #[test]
+    fn rec_lists_dropped_chunks_and_avix_continuations_keep_every_frame_number() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("odml.avi");
+        std::fs::write(&path, opendml_avi()).unwrap();
+        let mut avi = AviSource::open(&path).unwrap();
+        assert_eq!(avi.info().container_fps, Some(250.0));
+        let mut got = Vec::new();
+        while let Some(f) = avi.next_frame().unwrap() {
+            got.push((f.index, f.luma));
+        }
+        let want: Vec<(i64, Vec<f32>)> = vec![
+            (0, vec![0.0, 1.0, 2.0, 3.0]),
+            (2, vec![20.0, 21.0, 22.0, 23.0]),
+            (3, vec![30.0, 31.0, 32.0, 33.0]),
+        ];
+        assert_eq!(got, want);
+    }
+
+    #[test]
+    fn a_frame_chunk_shorter_than_its_picture_is_an_error_naming_the_frame() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("short.avi");
+        let bytes = opendml_avi();
+        // Frame 2's chunk says 4 bytes; make it say 3 (its data shifts by one).
+        let at = bytes
+            .windows(8)
+            .position(|w| w == [b'0', b'0', b'd', b'c', 4, 0, 0, 0])
+            .and_then(|first| {
+                bytes[first + 1..]
+                    .windows(8)
+                    .position(|w| w == [b'0', b'0', b'd', b'c', 4, 0, 0, 0])
+                    .map(|p| p + first + 1)
+            })
+            .unwrap();
+        let mut bytes = bytes;
+        bytes[at + 4] = 3;
+        std::fs::write(&path, bytes).unwrap();
+        let mut avi = AviSource::open(&path).unwrap();
+        let mut result = Ok(None);
+        for _ in 0..4 {
+            result = avi.next_frame();
+            if result.is_err() {
+                break;
+            }
+        }
+        let e = result.unwrap_err().to_string();
+        assert!(e.contains("short.avi") && e.contains("frame 2"), "{e}");
+    }
+}
