@@ -220,6 +220,15 @@ fn bad_videos_are_errors_naming_the_file_and_frame() {
     std::fs::write(mixed.join("f_2.pgm"), pgm(5, 4)).unwrap();
     let e = error_of(&mixed);
     assert!(e.contains("f_2.pgm") && e.contains("frame 2"), "{e}");
+    // Mixed bit depths.
+    let depths = dir.path().join("depths");
+    std::fs::create_dir(&depths).unwrap();
+    std::fs::write(depths.join("f_1.pgm"), pgm(4, 4)).unwrap();
+    let mut wide = b"P5\n4 4\n65535\n".to_vec();
+    wide.extend(vec![1u8; 32]);
+    std::fs::write(depths.join("f_2.pgm"), wide).unwrap();
+    let e = error_of(&depths);
+    assert!(e.contains("f_2.pgm") && e.contains("frame 2") && e.contains("16-bit"), "{e}");
     // A corrupt frame.
     let corrupt = dir.path().join("corrupt");
     std::fs::create_dir(&corrupt).unwrap();
@@ -484,4 +493,35 @@ fn a_named_point_the_bar_sweeps_over_is_lost_and_flagged() {
     let flags = record["flags"].as_array().unwrap();
     assert!(flags.iter().any(|f| f == "track_lost"), "{record}");
     assert!(record["video_input"]["track_lost_frame"].as_i64().is_some());
+}
+
+#[test]
+fn a_folder_of_numbered_images_is_a_video_but_a_folder_with_trials_of_its_own_is_not() {
+    use latchtime::batch::discover::{discover_with, DiscoverOptions};
+    let dir = tempfile::tempdir().unwrap();
+    let root = dir.path();
+    let pgm = b"P5\n2 2\n255\n\x01\x02\x03\x04";
+    for k in 0..12 {
+        std::fs::create_dir_all(root.join("t01")).unwrap();
+        std::fs::write(root.join(format!("t01/img{k:04}.pgm")), pgm).unwrap();
+        std::fs::create_dir_all(root.join("day2")).unwrap();
+        std::fs::write(root.join(format!("day2/plot{k}.pgm")), pgm).unwrap();
+    }
+    std::fs::write(root.join("day2/t05.frames.csv"), "time_s,y\n0,1\n").unwrap();
+    // Nine numbered images are too few to be taken for a video.
+    std::fs::create_dir_all(root.join("figs")).unwrap();
+    for k in 0..9 {
+        std::fs::write(root.join(format!("figs/f{k}.pgm")), pgm).unwrap();
+    }
+    let options = DiscoverOptions {
+        recursive: true,
+        ..DiscoverOptions::default()
+    };
+    let found = discover_with(root, &options).unwrap();
+    let names: Vec<(&str, bool)> = found
+        .trials
+        .iter()
+        .map(|t| (t.spec.name.as_str(), t.spec.video.is_some()))
+        .collect();
+    assert_eq!(names, [("day2/t05", false), ("t01", true)]);
 }

@@ -91,6 +91,16 @@ fn is_input_name(name: &str) -> bool {
     name.ends_with(FRAMES_SUFFIX) || is_audio(name) || is_video(name)
 }
 
+/// Whether a folder holds input files of its own (then it is a folder of trials, never a
+/// trial's image sequence).
+fn holds_inputs(dir: &Path) -> bool {
+    std::fs::read_dir(dir).is_ok_and(|entries| {
+        entries
+            .flatten()
+            .any(|e| is_input_name(&e.file_name().to_string_lossy()))
+    })
+}
+
 /// Finds the trials of a folder (not its subfolders) or a manifest, sorted by name.
 pub fn discover(input: &Path) -> Result<Vec<Discovered>> {
     Ok(discover_with(input, &DiscoverOptions::default())?.trials)
@@ -167,7 +177,8 @@ fn discover_folder(root: &Path, options: &DiscoverOptions) -> Result<Discovery> 
             let name = entry.file_name().to_string_lossy().into_owned();
             let path = entry.path();
             let is_real_dir = entry.file_type().is_ok_and(|t| t.is_dir());
-            if is_real_dir && searched && sequence::looks_like_video(&path) {
+            if is_real_dir && searched && !holds_inputs(&path) && sequence::looks_like_video(&path)
+            {
                 walk.video.insert(format!("{prefix}{name}"), (path, None));
                 continue;
             }
