@@ -228,7 +228,10 @@ fn bad_videos_are_errors_naming_the_file_and_frame() {
     wide.extend(vec![1u8; 32]);
     std::fs::write(depths.join("f_2.pgm"), wide).unwrap();
     let e = error_of(&depths);
-    assert!(e.contains("f_2.pgm") && e.contains("frame 2") && e.contains("16-bit"), "{e}");
+    assert!(
+        e.contains("f_2.pgm") && e.contains("frame 2") && e.contains("16-bit"),
+        "{e}"
+    );
     // A corrupt frame.
     let corrupt = dir.path().join("corrupt");
     std::fs::create_dir(&corrupt).unwrap();
