@@ -528,3 +528,18 @@ fn a_folder_of_numbered_images_is_a_video_but_a_folder_with_trials_of_its_own_is
         .collect();
     assert_eq!(names, [("day2/t05", false), ("t01", true)]);
 }
+
+#[test]
+fn the_terminal_summary_names_the_video_and_its_measures() {
+    let out = common::bin()
+        .args(["trial", "--video"])
+        .arg(data("gradient-32x24-12frames-500fps-ffmpeg-raw-gray.avi"))
+        .output()
+        .unwrap();
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(
+        text.contains("video             avi-raw 32x24, 12 frames"),
+        "{text}"
+    );
+    assert!(text.contains("motion measure    pca1: "), "{text}");
+}
