@@ -78,6 +78,7 @@ fn per_trial_cpu() {
         group: None,
         audio: Some(dir.path().join("cpu.wav")),
         frames: Some(dir.path().join("cpu.frames.csv")),
+        video: None,
     };
     let inputs = read_inputs(&spec).expect("read");
     let mut scratch = Scratch::default();

@@ -139,6 +139,7 @@ fn trials(dir: &Path) -> Vec<TrialSpec> {
                 group: None,
                 audio: Some(wav),
                 frames: frames.exists().then_some(frames),
+                video: None,
             }
         })
         .collect()
@@ -314,7 +315,7 @@ fn audio_cost_per_second(specs: &[TrialSpec], rig: &RigProfile) -> f64 {
         };
         let t0 = thread_cpu_s();
         pipeline::read_inputs_into(&audio_only, &mut inputs).expect("read inputs");
-        let record = pipeline::analyze_in_place(&audio_only, &mut inputs, rig, &mut scratch);
+        let (record, _) = pipeline::analyze_in_place(&audio_only, &mut inputs, rig, &mut scratch);
         cpu_s += thread_cpu_s() - t0;
         audio_s += record.audio_duration_s.unwrap_or(0.0);
     }

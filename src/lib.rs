@@ -46,6 +46,7 @@ pub mod report;
 pub mod rig;
 pub mod signal;
 pub mod synth;
+pub mod track;
 pub mod validate;
 
 pub use error::{Error, Result};

@@ -57,6 +57,9 @@ pub enum Flag {
     TruncatedAudio,
     /// A WAV whose recorder never finalised its header, read up to its last whole frame.
     UnfinalisedWav,
+    /// A video's tracked point (named, or found and moved a block or more) was lost before
+    /// the last frame; the detectors were fed the next measure (`video_input.measure`).
+    TrackLost,
 }
 
 impl Flag {
@@ -77,11 +80,12 @@ impl Flag {
             Flag::EncoderDelayUnknown => "encoder_delay_unknown",
             Flag::TruncatedAudio => "truncated_audio",
             Flag::UnfinalisedWav => "unfinalised_wav",
+            Flag::TrackLost => "track_lost",
         }
     }
 
     /// Every flag, in the order records list them.
-    pub const ALL: [Flag; 14] = [
+    pub const ALL: [Flag; 15] = [
         Flag::NoClick,
         Flag::DoubleClick,
         Flag::NoLoading,
@@ -96,6 +100,7 @@ impl Flag {
         Flag::EncoderDelayUnknown,
         Flag::TruncatedAudio,
         Flag::UnfinalisedWav,
+        Flag::TrackLost,
     ];
 }
 
@@ -175,6 +180,14 @@ pub struct Provenance {
     pub audio_blake3: Option<String>,
     #[serde(alias = "frames_sha256")]
     pub frames_blake3: Option<String>,
+    /// BLAKE3 over the video's files: an AVI's bytes, or each image's name, length and bytes
+    /// in name order.
+    #[serde(
+        default,
+        skip_serializing_if = "Option::is_none",
+        alias = "video_sha256"
+    )]
+    pub video_blake3: Option<String>,
     #[serde(alias = "settings_sha256")]
     pub settings_blake3: String,
 }
@@ -257,6 +270,13 @@ pub struct TrialRecord {
     pub frames_decoded: Option<u64>,
     pub video_duration_s: Option<f64>,
     pub frames_input: Option<FramesInput>,
+    /// The trial's video (an image-sequence folder or an AVI), when the frames were measured
+    /// from it.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub video_file: Option<String>,
+    /// How the video was read and which measure fed the detectors.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub video_input: Option<crate::track::VideoInput>,
     pub provenance: Provenance,
 }
 
@@ -339,6 +359,8 @@ impl TrialRecord {
             frames_decoded: None,
             video_duration_s: None,
             frames_input: None,
+            video_file: None,
+            video_input: None,
             provenance: Provenance::default(),
         }
     }

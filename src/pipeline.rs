@@ -3,11 +3,13 @@
 
 use std::path::{Path, PathBuf};
 
-use crate::decode::{self, DecodedAudio, FrameOptions, InputBytes};
+use crate::decode::{self, video, DecodedAudio, FrameOptions, InputBytes};
 use crate::detect::{self, click::ClickScratch, AudioEvents};
 use crate::error::{Error, Result};
 use crate::measure::{self, AudioInput, ChannelChoice, Flag, TrialRecord};
 use crate::rig::RigProfile;
+use crate::signal::FrameSeries;
+use crate::track;
 
 /// What one trial consists of.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -16,6 +18,8 @@ pub struct TrialSpec {
     pub group: Option<String>,
     pub audio: Option<PathBuf>,
     pub frames: Option<PathBuf>,
+    /// A video to measure the frames from: an image-sequence folder or an AVI file.
+    pub video: Option<PathBuf>,
 }
 
 /// The raw bytes of a trial's inputs, read once (for hashing and decoding alike). The audio's
@@ -24,6 +28,9 @@ pub struct TrialSpec {
 pub struct TrialInputs {
     pub audio: Option<InputBytes>,
     pub frames: Option<Vec<u8>>,
+    /// The video is decoded from its files as it is measured; only its fingerprint is read
+    /// here ([`video::fingerprint`]).
+    pub video_blake3: Option<String>,
 }
 
 /// Per-worker reusable state (FFT plans, buffers). The large buffers (the inputs' bytes, the
@@ -184,18 +191,29 @@ pub fn read_inputs(spec: &TrialSpec) -> Result<TrialInputs> {
 /// Reads the files a trial names into `inputs`, reusing its buffers' memory. On an error
 /// `inputs` holds nothing.
 pub fn read_inputs_into(spec: &TrialSpec, inputs: &mut TrialInputs) -> Result<()> {
-    if spec.audio.is_none() && spec.frames.is_none() {
+    if spec.audio.is_none() && spec.frames.is_none() && spec.video.is_none() {
         *inputs = TrialInputs::default();
         return Err(Error::Usage(format!(
-            "trial {}: neither an audio file nor a frames file is given",
+            "trial {}: neither an audio file nor a frames file nor a video is given",
             spec.name
         )));
     }
-    let result = read_slot(&spec.audio, &mut inputs.audio, read_input_into).and_then(|()| {
-        read_slot(&spec.frames, &mut inputs.frames, |path, bytes| {
-            read_bounded_into(path, MAX_INPUT_BYTES, true, bytes)
+    if spec.frames.is_some() && spec.video.is_some() {
+        return Err(Error::Usage(format!(
+            "trial {}: both a frames file and a video are given; give one",
+            spec.name
+        )));
+    }
+    let result = read_slot(&spec.audio, &mut inputs.audio, read_input_into)
+        .and_then(|()| {
+            read_slot(&spec.frames, &mut inputs.frames, |path, bytes| {
+                read_bounded_into(path, MAX_INPUT_BYTES, true, bytes)
+            })
         })
-    });
+        .and_then(|()| {
+            inputs.video_blake3 = spec.video.as_deref().map(video::fingerprint).transpose()?;
+            Ok(())
+        });
     if result.is_err() {
         *inputs = TrialInputs::default();
     }
@@ -229,6 +247,17 @@ pub fn analyze(
     rig: &RigProfile,
     scratch: &mut Scratch,
 ) -> TrialRecord {
+    analyze_with_measures(spec, inputs, rig, scratch).0
+}
+
+/// [`analyze`], also giving the per-frame measures of the trial's video (for
+/// `trials/NAME.frames.csv`).
+pub fn analyze_with_measures(
+    spec: &TrialSpec,
+    inputs: &TrialInputs,
+    rig: &RigProfile,
+    scratch: &mut Scratch,
+) -> (TrialRecord, Option<VideoMeasures>) {
     let buffer = std::mem::take(&mut scratch.samples);
     let audio = decode_first(
         spec,
@@ -241,9 +270,114 @@ pub fn analyze(
         audio_bytes: inputs.audio.as_deref().unwrap_or_default(),
         frames: inputs.frames.as_deref(),
     };
-    let (record, samples) = finish(spec, trial, rig, scratch);
+    let (record, samples, measures) = finish(spec, trial, rig, scratch);
     scratch.samples = samples.unwrap_or_default();
-    record
+    (record, measures)
+}
+
+/// A video's per-frame measures with their times (video clock, seconds).
+#[derive(Debug, Clone, PartialEq)]
+pub struct VideoMeasures {
+    pub time_s: Vec<f64>,
+    pub measures: track::Measures,
+}
+
+/// What a trial's video gave: the series for the detectors, the measures and the record's
+/// description of the video.
+struct VideoAnalysis {
+    series: FrameSeries,
+    measures: VideoMeasures,
+    input: track::VideoInput,
+}
+
+/// The rig's video measures settings.
+fn measure_config(rig: &RigProfile) -> track::MeasureConfig {
+    track::MeasureConfig {
+        track_point: rig.track_point.map(|p| (p[0], p[1])),
+        pivot: rig.pivot.map(|p| (p[0], p[1])),
+        rois: rig.rois.clone(),
+    }
+}
+
+/// Decodes and measures a video alone (the `frames` command): its per-frame measures and how
+/// it was read.
+pub fn measure_video_file(
+    path: &Path,
+    rig: &RigProfile,
+) -> Result<(VideoMeasures, track::VideoInput)> {
+    let v = analyse_video(path, rig)?;
+    Ok((v.measures, v.input))
+}
+
+/// Decodes and measures a video, and picks the measure for the detectors.
+fn analyse_video(path: &Path, rig: &RigProfile) -> Result<VideoAnalysis> {
+    let info = video::open(path)?.info().clone();
+    let (fps, fps_from) = match (info.container_fps, rig.fps) {
+        (Some(f), _) if f.is_finite() && f > 0.0 => (f, "container"),
+        (_, Some(f)) => (f, "rig"),
+        _ => {
+            return Err(Error::config(
+                "fps",
+                format!(
+                "{}: an image sequence has no frame rate of its own; give the rig's fps or --fps",
+                path.display()
+            ),
+            ))
+        }
+    };
+    let measures = track::measure_video(|| video::open(path), &measure_config(rig))?;
+    let choices = track::choose(
+        &measures,
+        rig.frames_column.as_deref(),
+        rig.loading_column.as_deref(),
+    )?;
+    let values = |name: &str| {
+        track::column(&measures, name)
+            .map(<[f64]>::to_vec)
+            .ok_or_else(|| Error::config("frames_column", format!("no video measure {name:?}")))
+    };
+    let motion = values(&choices.motion.column)?;
+    let loading = values(&choices.loading.column)?;
+    let first = measures.frame_index.first().copied().unwrap_or(0);
+    let index: Vec<i64> = measures.frame_index.iter().map(|i| i - first).collect();
+    let time_s: Vec<f64> = index.iter().map(|&i| i as f64 / fps).collect();
+    let track = measures.track.as_ref();
+    let input = track::VideoInput {
+        format: info.format.clone(),
+        width_px: measures.width,
+        height_px: measures.height,
+        frames_listed: info.frames_listed,
+        frames_decoded: measures.frame_index.len() as u64,
+        fps_from: fps_from.into(),
+        block_px: measures.block_px,
+        measure: choices.motion.column.clone(),
+        measure_reason: choices.motion.reason.clone(),
+        loading_measure: choices.loading.column.clone(),
+        loading_measure_reason: choices.loading.reason.clone(),
+        lamp_hz: track::lamp_hz(&measures.gain, fps),
+        track_start_px: track.map(|t| [t.x_px[0], t.y_px[0]]),
+        track_range_px: track.map(|t| t.range_px),
+        track_lost_frame: track
+            .and_then(|t| t.lost_at)
+            .and_then(|i| measures.frame_index.get(i).copied()),
+    };
+    let rows = index.len() as u64;
+    let series = FrameSeries {
+        time_s: time_s.clone(),
+        frame_index: Some(index),
+        motion,
+        loading,
+        motion_column: choices.motion.column,
+        loading_column: choices.loading.column,
+        timestamps_given: false,
+        row_index: (0..rows).collect(),
+        ..FrameSeries::default()
+    };
+    Ok(VideoAnalysis {
+        series,
+        measures: VideoMeasures { time_s, measures },
+        input,
+    })
 }
 
 /// As [`analyze`], decoding a mono WAV file over its own bytes
@@ -255,7 +389,7 @@ pub fn analyze_in_place(
     inputs: &mut TrialInputs,
     rig: &RigProfile,
     scratch: &mut Scratch,
-) -> TrialRecord {
+) -> (TrialRecord, Option<VideoMeasures>) {
     let buffer = std::mem::take(&mut scratch.samples);
     let mut kept = None;
     let input = inputs.audio.take();
@@ -271,7 +405,7 @@ pub fn analyze_in_place(
         audio_bytes: kept.as_deref().unwrap_or_default(),
         frames: inputs.frames.as_deref(),
     };
-    let (record, samples) = finish(spec, trial, rig, scratch);
+    let (record, samples, measures) = finish(spec, trial, rig, scratch);
     match kept {
         Some(input) => {
             inputs.audio = Some(input);
@@ -279,7 +413,7 @@ pub fn analyze_in_place(
         }
         None => inputs.audio = samples.map(InputBytes::from_words),
     }
-    record
+    (record, measures)
 }
 
 /// Decodes the rig's channel (the first one, for `auto`) with `decode`, when the trial has
@@ -315,15 +449,17 @@ fn finish(
     trial: FirstDecoded,
     rig: &RigProfile,
     scratch: &mut Scratch,
-) -> (TrialRecord, Option<Vec<f64>>) {
-    let analysed = try_analyze(spec, trial, rig, scratch);
+) -> (TrialRecord, Option<Vec<f64>>, Option<VideoMeasures>) {
+    let mut measures = None;
+    let analysed = try_analyze(spec, trial, rig, scratch, &mut measures);
     let (mut record, samples) = analysed.unwrap_or_else(|e| {
         let failed = TrialRecord::failed(&spec.name, spec.group.as_deref(), e.to_string());
         (failed, None)
     });
     record.audio_file = path_string(&spec.audio);
     record.frames_file = path_string(&spec.frames);
-    (record, samples)
+    record.video_file = path_string(&spec.video);
+    (record, samples, measures)
 }
 
 fn try_analyze(
@@ -331,6 +467,7 @@ fn try_analyze(
     trial: FirstDecoded,
     rig: &RigProfile,
     scratch: &mut Scratch,
+    measures_out: &mut Option<VideoMeasures>,
 ) -> Result<(TrialRecord, Option<Vec<f64>>)> {
     // The audio is decoded first, so that a trial whose files are both unreadable reports
     // its audio.
@@ -338,13 +475,17 @@ fn try_analyze(
         Some((path, decoded)) => Some((path, trial.audio_bytes, decoded?)),
         None => None,
     };
-    let frames = trial.frames;
-    let frames = match (&spec.frames, frames) {
-        (Some(path), Some(bytes)) => Some(decode::decode_frames(
+    let mut video = match &spec.video {
+        Some(path) => Some(analyse_video(path, rig)?),
+        None => None,
+    };
+    let frames = match (&spec.frames, trial.frames, video.as_mut()) {
+        (Some(path), Some(bytes), _) => Some(decode::decode_frames(
             path,
             bytes,
             &FrameOptions::from(rig),
         )?),
+        (_, _, Some(v)) => Some(std::mem::take(&mut v.series)),
         _ => None,
     };
     let mut video_events = frames.as_ref().map(|f| detect::detect_video(f, rig));
@@ -382,6 +523,14 @@ fn try_analyze(
         if f.input.dropped_rows > 0 {
             record.add_flags([Flag::FramesDroppedCells]);
         }
+    }
+    if let Some(v) = video {
+        record.frames_input = None;
+        if v.measures.measures.track_lost {
+            record.add_flags([Flag::TrackLost]);
+        }
+        record.video_input = Some(v.input);
+        *measures_out = Some(v.measures);
     }
     Ok((record, audio.map(|a| a.decoded.signal.samples)))
 }
@@ -488,6 +637,7 @@ pub fn analyze_files(spec: &TrialSpec, rig: &RigProfile, scratch: &mut Scratch) 
             let mut r = TrialRecord::failed(&spec.name, spec.group.as_deref(), e.to_string());
             r.audio_file = path_string(&spec.audio);
             r.frames_file = path_string(&spec.frames);
+            r.video_file = path_string(&spec.video);
             r
         }
     }

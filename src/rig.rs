@@ -94,6 +94,18 @@ pub struct RigProfile {
     pub release_min_jump_sigma: f64,
     /// Longest fast phase (release to motion peak) still taken as a release, ms.
     pub max_release_ms: f64,
+    /// Video: a point of the moving part to track, `[x, y]` pixels from the top-left pixel
+    /// (`--track x,y`); default: corners found where the picture changes most.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub track_point: Option<[f64; 2]>,
+    /// Video: the joint the part turns about, `[x, y]` pixels (`--pivot x,y`); with it the
+    /// tracked point's angle (`angle_rad`) is measured and fed to the detectors.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub pivot: Option<[f64; 2]>,
+    /// Video: named regions whose gain-corrected mean brightness is measured (`roi_NAME`
+    /// columns; `--roi name=x,y,w,h`).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub rois: Vec<crate::track::Roi>,
 }
 
 impl Default for RigProfile {
@@ -126,6 +138,9 @@ impl Default for RigProfile {
             release_rate_fraction: 0.1,
             release_min_jump_sigma: 8.0,
             max_release_ms: 25.0,
+            track_point: None,
+            pivot: None,
+            rois: Vec::new(),
         }
     }
 }
@@ -253,6 +268,33 @@ impl RigProfile {
         }
         positive("release_min_jump_sigma", self.release_min_jump_sigma)?;
         positive("max_release_ms", self.max_release_ms)?;
+        for (field, point) in [("track_point", self.track_point), ("pivot", self.pivot)] {
+            if let Some([x, y]) = point {
+                finite(field, x)?;
+                finite(field, y)?;
+            }
+        }
+        for (i, r) in self.rois.iter().enumerate() {
+            let clean = !r.name.is_empty()
+                && r.name
+                    .chars()
+                    .all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-');
+            if !clean || self.rois[..i].iter().any(|o| o.name == r.name) {
+                return Err(Error::config(
+                    "rois",
+                    format!(
+                        "region name {:?} must be unique and of letters, digits, - or _",
+                        r.name
+                    ),
+                ));
+            }
+            if r.w == 0 || r.h == 0 {
+                return Err(Error::config(
+                    "rois",
+                    format!("region {} has no area", r.name),
+                ));
+            }
+        }
         Ok(())
     }
 

@@ -33,6 +33,7 @@ use crate::rig::RigProfile;
 
 mod family;
 mod motion;
+pub mod video;
 
 pub use family::{Family, FramesFormat};
 pub use motion::ReleaseShape;

@@ -438,12 +438,14 @@ fn analyze_trial(
     let inputs = TrialInputs {
         audio: synth::wav_bytes(trial).map(crate::decode::InputBytes::from),
         frames: synth::frames_csv(trial, config.timestamp_digits).map(String::into_bytes),
+        video_blake3: None,
     };
     let spec = TrialSpec {
         name: name.to_string(),
         group: None,
         audio: Some(PathBuf::from(format!("{name}.wav"))),
         frames: Some(PathBuf::from(format!("{name}.frames.csv"))),
+        video: None,
     };
     pipeline::analyze(&spec, &inputs, rig, scratch)
 }

@@ -71,6 +71,7 @@ fn synthetic_trials_are_measured_within_first_pass_tolerances() {
                     group: None,
                     audio: Some(dir.path().join(format!("{name}.wav"))),
                     frames: Some(dir.path().join(format!("{name}.frames.csv"))),
+                    video: None,
                 };
                 let record = analyze_files(&spec, &rig, &mut scratch);
                 let record = serde_json::to_value(&record).unwrap();
@@ -137,6 +138,7 @@ fn a_separate_loading_column_is_used_for_loading_onset() {
         group: None,
         audio: None,
         frames: Some(path),
+        video: None,
     };
     let with_column = RigProfile {
         loading_column: Some("spring_px".into()),

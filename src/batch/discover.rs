@@ -13,6 +13,7 @@
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
+use crate::decode::video::{self, sequence};
 use crate::error::{Error, Result};
 use crate::pipeline::{self, trial_name, TrialSpec};
 
@@ -73,6 +74,11 @@ pub struct Discovery {
     pub warnings: Vec<Warning>,
 }
 
+/// Whether a file name is a video container (`NAME.avi`).
+fn is_video(name: &str) -> bool {
+    video::is_video_file(Path::new(name))
+}
+
 fn is_audio(name: &str) -> bool {
     Path::new(name)
         .extension()
@@ -82,7 +88,17 @@ fn is_audio(name: &str) -> bool {
 
 /// Whether a file name is taken as an input (audio or frames).
 fn is_input_name(name: &str) -> bool {
-    name.ends_with(FRAMES_SUFFIX) || is_audio(name)
+    name.ends_with(FRAMES_SUFFIX) || is_audio(name) || is_video(name)
+}
+
+/// Whether a folder holds input files of its own (then it is a folder of trials, never a
+/// trial's image sequence).
+fn holds_inputs(dir: &Path) -> bool {
+    std::fs::read_dir(dir).is_ok_and(|entries| {
+        entries
+            .flatten()
+            .any(|e| is_input_name(&e.file_name().to_string_lossy()))
+    })
 }
 
 /// Finds the trials of a folder (not its subfolders) or a manifest, sorted by name.
@@ -132,6 +148,8 @@ type Found = (PathBuf, Option<String>);
 struct Walk {
     audio: BTreeMap<String, Vec<Found>>,
     frames: BTreeMap<String, Found>,
+    /// Videos: `NAME.avi` files and `NAME/` folders holding an image sequence.
+    video: BTreeMap<String, Found>,
     /// Other files: (folder prefix such as `day1/`, file name, path), for near misses.
     others: Vec<(String, String, PathBuf)>,
     /// Input-named files below subfolders that were not searched, by top subfolder.
@@ -159,6 +177,11 @@ fn discover_folder(root: &Path, options: &DiscoverOptions) -> Result<Discovery> 
             let name = entry.file_name().to_string_lossy().into_owned();
             let path = entry.path();
             let is_real_dir = entry.file_type().is_ok_and(|t| t.is_dir());
+            if is_real_dir && searched && !holds_inputs(&path) && sequence::looks_like_video(&path)
+            {
+                walk.video.insert(format!("{prefix}{name}"), (path, None));
+                continue;
+            }
             if is_real_dir && !is_input_name(&name) {
                 let skip = name.starts_with('.')
                     || path.canonicalize().is_ok_and(|c| exclude.contains(&c));
@@ -183,6 +206,8 @@ fn discover_folder(root: &Path, options: &DiscoverOptions) -> Result<Discovery> 
             let trial = format!("{prefix}{}", trial_name(Path::new(&name)));
             if name.ends_with(FRAMES_SUFFIX) {
                 walk.frames.insert(trial, (path, problem));
+            } else if is_video(&name) {
+                walk.video.insert(trial, (path, problem));
             } else {
                 walk.audio.entry(trial).or_default().push((path, problem));
             }
@@ -199,6 +224,7 @@ fn discover_folder(root: &Path, options: &DiscoverOptions) -> Result<Discovery> 
         .audio
         .keys()
         .chain(walk.frames.keys())
+        .chain(walk.video.keys())
         .cloned()
         .collect();
     names.sort();
@@ -209,6 +235,7 @@ fn discover_folder(root: &Path, options: &DiscoverOptions) -> Result<Discovery> 
             let mut files = walk.audio.remove(&name).unwrap_or_default();
             files.sort();
             let frames = walk.frames.remove(&name);
+            let video = walk.video.remove(&name);
             let mut problem = (files.len() > 1).then(|| {
                 let list: Vec<String> = files.iter().map(|p| p.0.display().to_string()).collect();
                 format!(
@@ -218,13 +245,23 @@ fn discover_folder(root: &Path, options: &DiscoverOptions) -> Result<Discovery> 
             });
             let mut files = files.into_iter();
             let audio = files.next();
-            for (_, p) in audio.iter().chain(frames.iter()) {
+            if let (Some(f), Some(v)) = (&frames, &video) {
+                problem = problem.or_else(|| {
+                    Some(format!(
+                        "trial {name} has both a frames file ({}) and a video ({}); keep one",
+                        f.0.display(),
+                        v.0.display()
+                    ))
+                });
+            }
+            for (_, p) in audio.iter().chain(frames.iter()).chain(video.iter()) {
                 problem = problem.or_else(|| p.clone());
             }
             Discovered {
                 spec: TrialSpec {
                     audio: audio.map(|a| a.0),
                     frames: frames.map(|f| f.0),
+                    video: video.map(|v| v.0),
                     group: None,
                     name,
                 },
@@ -282,11 +319,12 @@ fn read_manifest(path: &Path) -> Result<Vec<Discovered>> {
     let col = |name: &str| headers.iter().position(|h| h == name);
     let (trial_col, audio_col, frames_col, group_col) =
         (col("trial"), col("audio"), col("frames"), col("group"));
-    if trial_col.is_none() || (audio_col.is_none() && frames_col.is_none()) {
+    let video_col = col("video");
+    if trial_col.is_none() || (audio_col.is_none() && frames_col.is_none() && video_col.is_none()) {
         return Err(Error::malformed(
             path,
             format!(
-                "a manifest needs the header trial,audio,frames,group (found: {})",
+                "a manifest needs the header trial,audio,frames,group (and video, if any) (found: {})",
                 headers.join(",")
             ),
         ));
@@ -303,20 +341,31 @@ fn read_manifest(path: &Path) -> Result<Vec<Discovered>> {
         };
         let audio = get(audio_col).map(|p| base.join(p));
         let frames = get(frames_col).map(|p| base.join(p));
+        let video = get(video_col).map(|p| base.join(p));
         let name = get(trial_col)
-            .or_else(|| audio.as_deref().or(frames.as_deref()).map(trial_name))
+            .or_else(|| {
+                (audio.as_deref().or(frames.as_deref()).or(video.as_deref())).map(trial_name)
+            })
             .unwrap_or_else(|| format!("line-{line}"));
-        let problem = (audio.is_none() && frames.is_none()).then(|| {
-            format!(
-                "{} line {line}: neither audio nor frames is given",
+        let problem = if audio.is_none() && frames.is_none() && video.is_none() {
+            Some(format!(
+                "{} line {line}: neither audio nor frames nor video is given",
                 path.display()
-            )
-        });
+            ))
+        } else if frames.is_some() && video.is_some() {
+            Some(format!(
+                "{} line {line}: both frames and video are given; keep one",
+                path.display()
+            ))
+        } else {
+            None
+        };
         let spec = TrialSpec {
             name: name.clone(),
             group: get(group_col),
             audio,
             frames,
+            video,
         };
         if let Some(existing) = by_name.get_mut(&name) {
             existing.problem = Some(format!(

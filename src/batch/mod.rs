@@ -453,6 +453,7 @@ fn process_with(
         tool_version: env!("CARGO_PKG_VERSION").to_string(),
         audio_blake3: inputs.audio.as_deref().map(blake3_hex),
         frames_blake3: inputs.frames.as_deref().map(blake3_hex),
+        video_blake3: inputs.video_blake3.clone(),
         settings_blake3: settings.to_string(),
     };
     let (audio_file, frames_file) = (path_string(&spec.audio), path_string(&spec.frames));
@@ -502,20 +503,22 @@ fn process_with(
         }
         None => {
             let analysed = std::panic::catch_unwind(AssertUnwindSafe(|| {
-                pipeline::analyze_in_place(spec, inputs, &config.rig, scratch)
+                let (record, measures) =
+                    pipeline::analyze_in_place(spec, inputs, &config.rig, scratch);
+                write_measures(&path, measures.as_ref()).map(|()| record)
             }));
             analysed.unwrap_or_else(|panic| {
                 let what = crate::error::panic_message(panic.as_ref());
                 *scratch = Scratch::default();
-                TrialRecord::failed(
+                Ok(TrialRecord::failed(
                     &spec.name,
                     spec.group.as_deref(),
                     format!(
                         "internal error while analysing trial {}: {what} (please report this bug)",
                         spec.name
                     ),
-                )
-            })
+                ))
+            })?
         }
     };
     record.provenance = provenance;
@@ -529,6 +532,17 @@ fn process_with(
     }
     writer.write(&path, text.as_bytes())?;
     Ok(done(record, TrialOutcome::Analysed))
+}
+
+/// Writes a video's per-frame measures beside its record (`NAME.json` -> `NAME.frames.csv`).
+fn write_measures(record_path: &Path, measures: Option<&pipeline::VideoMeasures>) -> Result<()> {
+    match measures {
+        Some(m) => atomic::write_atomic(
+            &record_path.with_extension("frames.csv"),
+            report::measures::measures_csv(m).as_bytes(),
+        ),
+        None => Ok(()),
+    }
 }
 
 #[cfg(test)]

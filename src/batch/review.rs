@@ -287,6 +287,23 @@ fn settings_rows(rig: &RigProfile) -> Vec<(String, String)> {
     out
 }
 
+/// A video trial's measures as written beside its record (`NAME.frames.csv`), with the
+/// columns that fed its detectors.
+fn video_measures(
+    record_path: &Path,
+    record: &crate::measure::TrialRecord,
+) -> Option<crate::signal::FrameSeries> {
+    let input = record.video_input.as_ref()?;
+    let csv = record_path.with_extension("frames.csv");
+    let bytes = std::fs::read(&csv).ok()?;
+    let options = crate::decode::FrameOptions {
+        motion_column: Some(input.measure.clone()),
+        loading_column: Some(input.loading_measure.clone()),
+        fps: None,
+    };
+    crate::decode::decode_frames(&csv, &bytes, &options).ok()
+}
+
 /// Writes `report.html` and `plots/NAME.svg` of a held results folder from the records of
 /// `campaign`, re-reading each trial's inputs (paths as recorded) to draw the evidence with
 /// `rig`, the settings the records were made with. One trial is held at a time. Figures of
@@ -329,10 +346,12 @@ pub fn write_report(
             Ok(b) => crate::decode::decode_audio(&p, &b, rig.audio_channel).ok(),
             Err(_) => None,
         });
-        let frames = load(&record.frames_file).and_then(|(p, bytes)| match bytes {
-            Ok(b) => crate::decode::decode_frames(&p, &b, &options).ok(),
-            Err(_) => None,
-        });
+        let frames = load(&record.frames_file)
+            .and_then(|(p, bytes)| match bytes {
+                Ok(b) => crate::decode::decode_frames(&p, &b, &options).ok(),
+                Err(_) => None,
+            })
+            .or_else(|| video_measures(path, &record));
         if (record.audio_file.is_some() && audio.is_none())
             || (record.frames_file.is_some() && frames.is_none())
         {

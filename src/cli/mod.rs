@@ -42,6 +42,8 @@ enum Command {
     Trial(TrialArgs),
     /// Analyse every trial of a folder or manifest into an output folder.
     Batch(BatchArgs),
+    /// Measure a video (image-sequence folder or AVI) and write its per-frame measures as CSV.
+    Frames(FramesArgs),
     /// Rebuild summary.csv and groups.csv of an output folder from its records.
     Summarize(SummarizeArgs),
     /// Write the review page report.html and per-trial figures for an output folder.
@@ -122,7 +124,8 @@ struct RigArgs {
     /// Rig profile (JSON).
     #[arg(long)]
     rig: Option<PathBuf>,
-    /// Frame rate for frame CSVs without time_s (overrides the rig profile).
+    /// Frame rate for frame CSVs without time_s and for image sequences (overrides the rig
+    /// profile; an AVI states its own).
     #[arg(long)]
     fps: Option<f64>,
     /// Audio channel to analyse, from 0, or `auto` for the channel with the clearest click
@@ -138,6 +141,58 @@ struct RigArgs {
     /// Audio clock minus video clock, seconds (overrides the rig profile's video_offset_s).
     #[arg(long, allow_hyphen_values = true)]
     video_offset_s: Option<f64>,
+    /// Video: a point of the moving part to track, pixels `x,y` (overrides the rig profile).
+    #[arg(long, value_parser = parse_point)]
+    track: Option<[f64; 2]>,
+    /// Video: the joint the part turns about, pixels `x,y`; gives the angle (overrides the
+    /// rig profile).
+    #[arg(long, value_parser = parse_point)]
+    pivot: Option<[f64; 2]>,
+    /// Video: a region whose mean brightness to measure, `name=x,y,w,h` pixels; repeat for
+    /// more (replaces the rig profile's regions).
+    #[arg(long, value_parser = parse_roi)]
+    roi: Vec<crate::track::Roi>,
+}
+
+/// `x,y` in pixels.
+fn parse_point(s: &str) -> Result<[f64; 2], String> {
+    let (a, b) = s
+        .split_once(',')
+        .ok_or("expected x,y in pixels, e.g. 120,80")?;
+    let num = |t: &str| -> Result<f64, String> {
+        t.trim()
+            .parse::<f64>()
+            .ok()
+            .filter(|v| v.is_finite())
+            .ok_or_else(|| format!("{t:?} is not a number"))
+    };
+    Ok([num(a)?, num(b)?])
+}
+
+/// `name=x,y,w,h` in pixels.
+fn parse_roi(s: &str) -> Result<crate::track::Roi, String> {
+    let (name, rest) = s
+        .split_once('=')
+        .ok_or("expected name=x,y,w,h in pixels, e.g. tip=100,40,20,20")?;
+    let parts: Vec<&str> = rest.split(',').collect();
+    let nums: Result<Vec<usize>, String> = parts
+        .iter()
+        .map(|t| {
+            t.trim()
+                .parse()
+                .map_err(|_| format!("{t:?} is not a whole number"))
+        })
+        .collect();
+    match nums?.as_slice() {
+        &[x, y, w, h] => Ok(crate::track::Roi {
+            name: name.trim().to_string(),
+            x,
+            y,
+            w,
+            h,
+        }),
+        _ => Err("expected four numbers x,y,w,h".into()),
+    }
 }
 
 /// `--channel N` or `--channel auto`.
@@ -171,11 +226,25 @@ struct TrialArgs {
     /// Frame CSV of the trial.
     #[arg(long)]
     frames: Option<PathBuf>,
+    /// Video of the trial: a folder holding one image sequence, or an AVI file.
+    #[arg(long)]
+    video: Option<PathBuf>,
     #[command(flatten)]
     rig: RigArgs,
     /// Output format.
     #[arg(long, value_enum, default_value_t = Format::Text)]
     format: Format,
+}
+
+#[derive(Args, Debug)]
+struct FramesArgs {
+    /// The video: a folder holding one image sequence, or an AVI file.
+    video: PathBuf,
+    /// CSV file to write (default: standard output).
+    #[arg(long)]
+    out: Option<PathBuf>,
+    #[command(flatten)]
+    rig: RigArgs,
 }
 
 #[derive(Args, Debug)]
@@ -336,6 +405,9 @@ impl RigArgs {
             || self.column.is_some()
             || self.loading_column.is_some()
             || self.video_offset_s.is_some()
+            || self.track.is_some()
+            || self.pivot.is_some()
+            || !self.roi.is_empty()
     }
 
     fn profile(&self) -> Result<RigProfile, Error> {
@@ -360,6 +432,15 @@ impl RigArgs {
         if let Some(offset) = self.video_offset_s {
             rig.video_offset_s = offset;
         }
+        if self.track.is_some() {
+            rig.track_point = self.track;
+        }
+        if self.pivot.is_some() {
+            rig.pivot = self.pivot;
+        }
+        if !self.roi.is_empty() {
+            rig.rois = self.roi.clone();
+        }
         rig.validate()?;
         Ok(rig)
     }
@@ -371,6 +452,7 @@ pub fn run() -> ExitCode {
     match cli.command {
         Command::Trial(args) => run_trial(args),
         Command::Batch(args) => campaign::run_batch(args),
+        Command::Frames(args) => run_frames(args),
         Command::Summarize(args) => {
             let GroupBy::Group = args.by;
             campaign::run_summarize(&args.dir)
@@ -393,14 +475,20 @@ fn run_trial(args: TrialArgs) -> ExitCode {
         Ok(r) => r,
         Err(e) => return fail(EXIT_USAGE, e),
     };
-    let Some(name_source) = args.audio.as_deref().or(args.frames.as_deref()) else {
-        return fail(EXIT_USAGE, "give --audio, --frames or both");
+    let name_source = args
+        .audio
+        .as_deref()
+        .or(args.frames.as_deref())
+        .or(args.video.as_deref());
+    let Some(name_source) = name_source else {
+        return fail(EXIT_USAGE, "give --audio, --frames or --video");
     };
     let spec = TrialSpec {
         name: pipeline::trial_name(name_source),
         group: None,
         audio: args.audio.clone(),
         frames: args.frames.clone(),
+        video: args.video.clone(),
     };
     let record = pipeline::analyze_files(&spec, &rig, &mut Scratch::default());
     match args.format {
@@ -411,6 +499,28 @@ fn run_trial(args: TrialArgs) -> ExitCode {
         ExitCode::from(EXIT_TRIAL_FAILED)
     } else {
         ExitCode::SUCCESS
+    }
+}
+
+fn run_frames(args: FramesArgs) -> ExitCode {
+    let rig = match args.rig.profile() {
+        Ok(r) => r,
+        Err(e) => return fail(EXIT_USAGE, e),
+    };
+    let measures = match pipeline::measure_video_file(&args.video, &rig) {
+        Ok((m, _)) => m,
+        Err(e) => return fail(EXIT_TRIAL_FAILED, e),
+    };
+    let text = report::measures::measures_csv(&measures);
+    match &args.out {
+        Some(path) => match crate::batch::atomic::write_atomic(path, text.as_bytes()) {
+            Ok(()) => ExitCode::SUCCESS,
+            Err(e) => fail(EXIT_TRIAL_FAILED, e),
+        },
+        None => {
+            print!("{text}");
+            ExitCode::SUCCESS
+        }
     }
 }
 

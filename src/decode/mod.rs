@@ -6,6 +6,7 @@
 pub mod audio;
 pub mod frames;
 mod mp4;
+pub mod video;
 mod wav;
 
 pub use audio::{

@@ -7,6 +7,7 @@ pub mod csv;
 pub mod groups;
 pub mod html;
 pub mod json;
+pub mod measures;
 pub mod plots;
 pub mod text;
 pub mod validate;

@@ -63,6 +63,19 @@ pub fn render(record: &TrialRecord) -> String {
         }
     }
     let _ = writeln!(s, "video clock");
+    if let Some(v) = &record.video_input {
+        let _ = writeln!(
+            s,
+            "  video             {} {}x{}, {} frames",
+            v.format, v.width_px, v.height_px, v.frames_decoded
+        );
+        let _ = writeln!(s, "  motion measure    {}: {}", v.measure, v.measure_reason);
+        let _ = writeln!(
+            s,
+            "  loading measure   {}: {}",
+            v.loading_measure, v.loading_measure_reason
+        );
+    }
     let _ = writeln!(
         s,
         "  loading onset     {}",

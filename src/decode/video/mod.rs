@@ -1,0 +1,122 @@
+//! Video decoding: a camera's own files into a stream of greyscale frames, one at a time, so
+//! memory stays flat in the video's length. Two sources: a folder holding one numbered image
+//! sequence ([`sequence`]: TIFF including multi-page, PNG, JPEG, BMP, PGM/PPM) and an AVI file
+//! ([`avi`]: raw or MJPEG, read with a small RIFF reader).
+//!
+//! Colour is converted to luma with the ITU-R BT.601 weights (Y = 0.299 R + 0.587 G +
+//! 0.114 B), the weights JPEG/JFIF uses for its own Y channel, so a colour JPEG's luma is
+//! the same whether it is read as Y or as RGB. Sample values keep their units: 8-bit data
+//! 0-255, 16-bit data 0-65535, and a 12-bit PGM (maxval 4095) 0-4095, never rescaled.
+
+pub mod avi;
+pub mod image;
+pub mod sequence;
+
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+
+/// One decoded frame: luma per pixel, row-major, top row first.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Frame {
+    /// Frame number: the digits of an image's file name, the page of a multi-page TIFF, or
+    /// the position of the frame's chunk in an AVI. Gaps are dropped frames.
+    pub index: i64,
+    pub width: usize,
+    pub height: usize,
+    pub luma: Vec<f32>,
+}
+
+/// What a video source is, learnt when it is opened.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct VideoInfo {
+    /// `tiff`, `png`, `jpeg`, `bmp`, `pnm`, `avi-raw` or `avi-mjpeg`.
+    pub format: String,
+    /// Frame rate the container states (AVI), frames per second; None for image sequences.
+    pub container_fps: Option<f64>,
+    /// Frames the source lists (files, pages or chunks), before decoding.
+    pub frames_listed: u64,
+}
+
+/// A stream of frames. `next_frame` gives `Ok(None)` at the end; an error names the file
+/// and the frame.
+pub trait FrameSource {
+    fn info(&self) -> &VideoInfo;
+    fn next_frame(&mut self) -> Result<Option<Frame>>;
+}
+
+/// File extensions (lower case) read as video containers.
+pub const VIDEO_EXTENSIONS: [&str; 1] = ["avi"];
+
+/// Whether `path` names a video container by its extension.
+pub fn is_video_file(path: &Path) -> bool {
+    path.extension()
+        .and_then(|e| e.to_str())
+        .is_some_and(|e| VIDEO_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
+}
+
+/// Opens a trial's video: a folder of one image sequence or an AVI file.
+pub fn open(path: &Path) -> Result<Box<dyn FrameSource>> {
+    let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
+    if meta.is_dir() {
+        return Ok(Box::new(sequence::Sequence::open(path)?));
+    }
+    if is_video_file(path) {
+        return Ok(Box::new(avi::AviSource::open(path)?));
+    }
+    Err(Error::Unsupported {
+        path: path.to_path_buf(),
+        reason: "a video is a folder of numbered images or an .avi file".into(),
+    })
+}
+
+/// Luma of one RGB pixel, ITU-R BT.601 weights.
+#[inline]
+pub fn luma_601(r: f32, g: f32, b: f32) -> f32 {
+    0.299 * r + 0.587 * g + 0.114 * b
+}
+
+/// Checks that a frame matches the first one's size; a mixed size is an error naming it.
+pub fn check_size(path: &Path, frame: &Frame, first: Option<(usize, usize)>) -> Result<()> {
+    match first {
+        Some((w, h)) if (w, h) != (frame.width, frame.height) => Err(Error::malformed(
+            path,
+            format!(
+                "frame {} is {}x{} pixels but the video's first frame is {w}x{h}",
+                frame.index, frame.width, frame.height
+            ),
+        )),
+        _ => Ok(()),
+    }
+}
+
+/// BLAKE3 (hex) over a video's content, for resume: an AVI's bytes, or for a folder each
+/// image file's name, length and bytes in name order. Files are streamed, never held whole.
+pub fn fingerprint(path: &Path) -> Result<String> {
+    let mut hasher = blake3::Hasher::new();
+    let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
+    let files = if meta.is_dir() {
+        sequence::image_files(path)?
+    } else {
+        vec![(String::new(), path.to_path_buf())]
+    };
+    let mut buf = vec![0u8; 1 << 20];
+    for (name, file) in files {
+        use std::io::Read;
+        let mut f = std::fs::File::open(&file).map_err(|e| Error::io(&file, e))?;
+        let len = f.metadata().map_err(|e| Error::io(&file, e))?.len();
+        hasher.update(name.as_bytes());
+        hasher.update(&[0]);
+        hasher.update(&len.to_le_bytes());
+        loop {
+            let n = f.read(&mut buf).map_err(|e| Error::io(&file, e))?;
+            if n == 0 {
+                break;
+            }
+            hasher.update(&buf[..n]);
+        }
+    }
+    Ok(hasher.finalize().to_hex().to_string())
+}
