@@ -16,7 +16,7 @@ from conftest import BIN, ROOT
 FLAGS = [
     "no_click", "double_click", "no_loading", "no_release", "clipped", "sync_mismatch",
     "low_snr", "frame_gaps", "frames_dropped_cells", "click_on_other_channel", "lossy_audio",
-    "encoder_delay_unknown", "truncated_audio", "unfinalised_wav",
+    "encoder_delay_unknown", "truncated_audio", "unfinalised_wav", "track_lost",
 ]
 MEASURES = [
     "click_onset_s", "click_onset_sd_ms", "clicks", "ticks", "thumps",
