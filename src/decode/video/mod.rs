@@ -120,3 +120,24 @@ pub fn fingerprint(path: &Path) -> Result<String> {
     }
     Ok(hasher.finalize().to_hex().to_string())
 }
+
+/// The frames of `path` whose indices are in `wanted`, in index order, read through the video
+/// once and stopping after the last one wanted: only those frames are held, so memory stays
+/// flat in the video's length. An index the video lacks (a dropped frame) is left out.
+pub fn frames_at(path: &Path, wanted: &[i64]) -> Result<Vec<Frame>> {
+    let Some(last) = wanted.iter().copied().max() else {
+        return Ok(Vec::new());
+    };
+    let mut source = open(path)?;
+    let mut out = Vec::new();
+    while let Some(frame) = source.next_frame()? {
+        let index = frame.index;
+        if wanted.contains(&index) {
+            out.push(frame);
+        }
+        if index >= last {
+            break;
+        }
+    }
+    Ok(out)
+}
