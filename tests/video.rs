@@ -247,7 +247,7 @@ fn bad_videos_are_errors_naming_the_file_and_frame() {
 }
 
 #[test]
-fn frames_at_keeps_only_the_frames_asked_for_and_stops_after_the_last() {
+fn frames_at_keeps_only_the_frames_asked_for_and_reads_no_more_than_it_must() {
     let path = data("gradient-32x24-12frames-500fps-ffmpeg-raw-gray.avi");
     let frames = video::frames_at(&path, &[7, 2, 40]).unwrap();
     let indices: Vec<i64> = frames.iter().map(|f| f.index).collect();
@@ -260,6 +260,22 @@ fn frames_at_keeps_only_the_frames_asked_for_and_stops_after_the_last() {
     std::fs::write(&cut, &bytes[..bytes.len() * 2 / 3]).unwrap();
     assert_eq!(video::frames_at(&cut, &[1]).unwrap().len(), 1);
     assert!(read_all(&cut).is_err());
+    // An image sequence's files before a wanted frame are passed over unread (a corrupt one
+    // does not matter), and a dropped frame does not cost the next one wanted.
+    let seq = dir.path().join("seq");
+    std::fs::create_dir(&seq).unwrap();
+    for entry in std::fs::read_dir(data("gradient-32x24-ffmpeg-bmp")).unwrap() {
+        let entry = entry.unwrap();
+        std::fs::copy(entry.path(), seq.join(entry.file_name())).unwrap();
+    }
+    std::fs::write(seq.join("frame_0001.bmp"), b"BM not really").unwrap();
+    std::fs::remove_file(seq.join("frame_0003.bmp")).unwrap();
+    assert!(read_all(&seq).is_err());
+    let frames = video::frames_at(&seq, &[6, 3, 4]).unwrap();
+    let indices: Vec<i64> = frames.iter().map(|f| f.index).collect();
+    assert_eq!(indices, [4, 6]);
+    // BMP grey as equal R, G, B: luma is the grey level up to float rounding.
+    assert!((frames[0].luma[0] - gradient(4, 0, 0)).abs() <= 0.5);
 }
 
 /// Renders a trial of `config` into `dir` as an 8-bit PGM sequence; returns its truth.
