@@ -54,6 +54,11 @@ fn report_over_the_sample_data_links_a_figure_for_every_trial() {
         let svg = std::fs::read_to_string(out.path().join(format!("plots/{name}.svg"))).unwrap();
         parse_xml(&svg).unwrap_or_else(|e| panic!("{name}.svg does not parse: {e}"));
         assert!(svg.contains(name.as_str()), "{name}.svg has no title");
+        // Frame crops belong to video trials only; these are audio and frames-CSV trials.
+        assert!(
+            !svg.contains("<image") && !svg.contains("Frames at the events"),
+            "{name}: crops in a trial without a video"
+        );
         // Every panel names its axes with units; a trial with a release has its close-up,
         // with the fitted oscillation drawn over the frames when the record holds the fit.
         let record = common::read_json(&out.path().join(format!("trials/{name}.json")));

@@ -246,6 +246,38 @@ fn bad_videos_are_errors_naming_the_file_and_frame() {
     assert!(e.contains("cut.avi") && e.contains("frame"), "{e}");
 }
 
+#[test]
+fn frames_at_keeps_only_the_frames_asked_for_and_reads_no_more_than_it_must() {
+    let path = data("gradient-32x24-12frames-500fps-ffmpeg-raw-gray.avi");
+    let frames = video::frames_at(&path, &[7, 2, 40]).unwrap();
+    let indices: Vec<i64> = frames.iter().map(|f| f.index).collect();
+    assert_eq!(indices, [2, 7], "frame 40 is not in the video");
+    assert_eq!(frames[1].luma[0], gradient(7, 0, 0));
+    // Reading stops at the last frame asked for, so a cut later in the file does not matter.
+    let dir = tempfile::tempdir().unwrap();
+    let bytes = std::fs::read(&path).unwrap();
+    let cut = dir.path().join("cut.avi");
+    std::fs::write(&cut, &bytes[..bytes.len() * 2 / 3]).unwrap();
+    assert_eq!(video::frames_at(&cut, &[1]).unwrap().len(), 1);
+    assert!(read_all(&cut).is_err());
+    // An image sequence's files before a wanted frame are passed over unread (a corrupt one
+    // does not matter), and a dropped frame does not cost the next one wanted.
+    let seq = dir.path().join("seq");
+    std::fs::create_dir(&seq).unwrap();
+    for entry in std::fs::read_dir(data("gradient-32x24-ffmpeg-bmp")).unwrap() {
+        let entry = entry.unwrap();
+        std::fs::copy(entry.path(), seq.join(entry.file_name())).unwrap();
+    }
+    std::fs::write(seq.join("frame_0001.bmp"), b"BM not really").unwrap();
+    std::fs::remove_file(seq.join("frame_0003.bmp")).unwrap();
+    assert!(read_all(&seq).is_err());
+    let frames = video::frames_at(&seq, &[6, 3, 4]).unwrap();
+    let indices: Vec<i64> = frames.iter().map(|f| f.index).collect();
+    assert_eq!(indices, [4, 6]);
+    // BMP grey as equal R, G, B: luma is the grey level up to float rounding.
+    assert!((frames[0].luma[0] - gradient(4, 0, 0)).abs() <= 0.5);
+}
+
 /// Renders a trial of `config` into `dir` as an 8-bit PGM sequence; returns its truth.
 fn render_trial(dir: &Path, scene: &synth::video::Scene, fps: f64, seed: u64) -> synth::Truth {
     let config = SynthConfig {
@@ -365,6 +397,7 @@ fn a_campaign_folder_of_image_sequences_writes_records_and_measures_csvs() {
     // The review figure draws the measure from the CSV beside the record.
     let figure = std::fs::read_to_string(out.join("plots/t01.svg")).unwrap();
     assert!(figure.contains("<path") || figure.contains("<polyline"));
+    crop_strip_shows_the_events(&figure, &record, 2000.0);
     let csv = out.join("trials/t01.frames.csv");
     let text = std::fs::read_to_string(&csv).unwrap();
     assert!(text.starts_with("frame,time_s,gain,pca1,track_x_px,track_y_px,track_px\n"));
@@ -383,6 +416,55 @@ fn a_campaign_folder_of_image_sequences_writes_records_and_measures_csvs() {
     );
     // The CSV prints the track to 1e-4 px: the same release to well within a frame.
     assert!((a - b).abs() < 0.1 / 2000.0, "{a} {b}");
+}
+
+/// A video trial's figure holds four frame crops, embedded (PNG data URIs, nothing fetched),
+/// each labelled with its event and the frame nearest to it, the tracked point crossed.
+fn crop_strip_shows_the_events(figure: &str, record: &Value, fps: f64) {
+    let mut reader = quick_xml::Reader::from_str(figure);
+    loop {
+        match reader.read_event() {
+            Ok(quick_xml::events::Event::Eof) => break,
+            Ok(_) => {}
+            Err(e) => panic!("figure does not parse at {}: {e}", reader.buffer_position()),
+        }
+    }
+    assert!(figure.contains("Frames at the events"), "no crop row");
+    let prefix = "href=\"data:image/png;base64,";
+    assert_eq!(figure.matches("<image class=\"frame-crop\"").count(), 4);
+    assert_eq!(figure.matches(prefix).count(), 4);
+    // The tracked point's cross: an outline and a colour stroke per crop.
+    assert_eq!(figure.matches("class=\"tracked-point\"").count(), 4);
+    for (field, label) in [
+        ("loading_onset_s", "loading onset"),
+        ("latch_release_s", "release"),
+        ("motion_peak_s", "motion peak"),
+    ] {
+        let t = record[field].as_f64().unwrap();
+        // Frames are numbered from 0 in the rendered files, so the nearest is t * fps.
+        let frame = (t * fps).round() as i64;
+        assert!(figure.contains(&format!("\n{label}\n")), "{label}");
+        let text = format!("\nframe {frame}, {:.4} s\n", frame as f64 / fps);
+        assert!(figure.contains(&text), "{label} at {frame}");
+    }
+    assert!(figure.contains("\nfirst ringing extremum\n"));
+    // The first crop decodes as a square greyscale PNG at least 96 px wide that shows
+    // something (the bar against the background).
+    use base64::Engine;
+    let start = figure.find(prefix).unwrap() + prefix.len();
+    let end = start + figure[start..].find('"').unwrap();
+    let bytes = base64::engine::general_purpose::STANDARD
+        .decode(&figure[start..end])
+        .unwrap();
+    let mut decoder = png::Decoder::new(std::io::Cursor::new(bytes))
+        .read_info()
+        .unwrap();
+    let mut px = vec![0; decoder.output_buffer_size()];
+    let info = decoder.next_frame(&mut px).unwrap();
+    assert_eq!(info.color_type, png::ColorType::Grayscale);
+    assert!(info.width == info.height && info.width >= 96, "{info:?}");
+    let (lo, hi) = (px.iter().min().unwrap(), px.iter().max().unwrap());
+    assert!(hi - lo > 150, "flat crop: {lo}..{hi}");
 }
 
 #[test]

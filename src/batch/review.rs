@@ -304,6 +304,57 @@ fn video_measures(
     crate::decode::decode_frames(&csv, &bytes, &options).ok()
 }
 
+/// Frame numbers, times and the tracked point per row of a video's measures CSV (blank track
+/// cells: no point there).
+fn frame_points(csv_path: &Path) -> Result<report::crops::FramePoints> {
+    let bad = |reason: String| Error::malformed(csv_path, reason);
+    let mut reader = csv::Reader::from_path(csv_path).map_err(|e| bad(e.to_string()))?;
+    let headers = reader.headers().map_err(|e| bad(e.to_string()))?.clone();
+    let col = |name: &str| headers.iter().position(|h| h == name);
+    let (Some(frame), Some(time)) = (col("frame"), col("time_s")) else {
+        return Err(bad("no frame or time_s column".into()));
+    };
+    let (x, y) = (col("track_x_px"), col("track_y_px"));
+    let mut points = report::crops::FramePoints::default();
+    for (i, row) in reader.records().enumerate() {
+        let row = row.map_err(|e| bad(format!("row {}: {e}", i + 2)))?;
+        let number = |c: Option<usize>| c.and_then(|c| row.get(c)?.trim().parse::<f64>().ok());
+        let index = row.get(frame).and_then(|v| v.trim().parse::<i64>().ok());
+        let (Some(index), Some(t)) = (index, number(Some(time))) else {
+            return Err(bad(format!("row {}: no frame number or time", i + 2)));
+        };
+        points.frame.push(index);
+        points.time_s.push(t);
+        points.point_px.push(number(x).zip(number(y)));
+    }
+    Ok(points)
+}
+
+/// The crop row of a video trial's figure: its frames at the events, read from the video
+/// again (only those frames are held); None for a trial without a video or in error.
+fn video_crops(
+    record_path: &Path,
+    record: &crate::measure::TrialRecord,
+    frames: Option<&crate::signal::FrameSeries>,
+) -> Option<report::crops::CropStrip> {
+    use report::crops::{self, CropStrip};
+    if record.status == Status::Error {
+        return None;
+    }
+    let video = PathBuf::from(record.video_file.as_ref()?);
+    let strip = (|| {
+        let points = frame_points(&record_path.with_extension("frames.csv"))?;
+        let events = crops::events(record, &points, frames);
+        let wanted: Vec<i64> = events.iter().map(|e| points.frame[e.row]).collect();
+        let decoded = crate::decode::video::frames_at(&video, &wanted)?;
+        Ok::<_, Error>(crops::cut(&events, &points, &decoded))
+    })();
+    Some(match strip {
+        Ok(c) => CropStrip::Crops(c),
+        Err(e) => CropStrip::Missing(format!("cannot read them again: {e}")),
+    })
+}
+
 /// Writes `report.html` and `plots/NAME.svg` of a held results folder from the records of
 /// `campaign`, re-reading each trial's inputs (paths as recorded) to draw the evidence with
 /// `rig`, the settings the records were made with. One trial is held at a time. Figures of
@@ -363,9 +414,15 @@ pub fn write_report(
             f
         });
         let offset_s = rig.video_offset_s + rig.acoustic_delay_s();
-        let figure =
-            report::plots::trial_figure(&record, audio.as_ref(), frames.as_ref(), offset_s)
-                .map_err(|e| Error::malformed(path, format!("cannot draw the figure: {e}")))?;
+        let crops = video_crops(path, &record, frames.as_ref());
+        let figure = report::plots::trial_figure(
+            &record,
+            audio.as_ref(),
+            frames.as_ref(),
+            offset_s,
+            crops.as_ref(),
+        )
+        .map_err(|e| Error::malformed(path, format!("cannot draw the figure: {e}")))?;
         let figure_name = format!("{stem}.svg");
         figures.insert(figure_name.clone());
         atomic::write_atomic(&plots.join(&figure_name), figure.as_bytes())?;

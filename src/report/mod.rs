@@ -3,6 +3,7 @@
 
 pub mod campaign;
 pub mod charts;
+pub mod crops;
 pub mod csv;
 pub mod groups;
 pub mod html;

@@ -1,7 +1,8 @@
 //! The per-trial figure as SVG, drawn with plotters' SVG backend: the evidence behind each
 //! number. Five panels: the click close-up, the whole audio, the whole motion trace, the
 //! release close-up (the frames around the release with every event and its 95 % band) and the
-//! fitted oscillation. Colours are the Okabe-Ito set, chosen for readers with any common
+//! fitted oscillation; a video trial also gets a row of frame crops at its events
+//! ([`super::crops`]) after the motion trace. Colours are the Okabe-Ito set, chosen for readers with any common
 //! colour-vision deficiency and for greyscale print: events are told apart by colour, by line
 //! style (solid, dashed) and by label. Labels sit in rows above each panel, laid out so that
 //! none overlaps another ([`label_rows`]).
@@ -10,6 +11,7 @@ use plotters::coord::types::RangedCoordf64;
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
+use super::crops::CropStrip;
 use crate::detect::filter::{butterworth_highpass, filtfilt};
 use crate::measure::TrialRecord;
 use crate::signal::{AudioSignal, FrameSeries};
@@ -32,6 +34,11 @@ pub(crate) type DrawResult = Result<(), Box<dyn std::error::Error>>;
 const WIDTH: u32 = 960;
 /// Heights of the title block and of each panel, pixels.
 const HEIGHTS: [u32; 6] = [64, 230, 200, 250, 340, 220];
+/// Height of a video trial's row of frame crops, the edge of one crop as drawn, and the gap
+/// between crops, pixels.
+const CROP_ROW_PX: u32 = 250;
+const CROP_CELL_PX: u32 = 180;
+const CROP_GAP_PX: u32 = 24;
 /// Room for the y axis's tick labels and title, and the panels' margin, pixels.
 const Y_AXIS_PX: u32 = 78;
 const MARGIN_PX: u32 = 10;
@@ -276,21 +283,28 @@ fn title_block(area: &Area, record: &TrialRecord) -> DrawResult {
 }
 
 /// The per-trial figure: title with the numbers and their uncertainties, click close-up, whole
-/// audio, motion trace, release close-up and fitted oscillation.
+/// audio, motion trace, (for a video trial, `crops`: the frames at the events), release
+/// close-up and fitted oscillation.
 pub fn trial_figure(
     record: &TrialRecord,
     audio: Option<&AudioSignal>,
     frames: Option<&FrameSeries>,
     video_offset_and_delay_s: f64,
+    crops: Option<&CropStrip>,
 ) -> Result<String, Box<dyn std::error::Error>> {
+    let mut heights = HEIGHTS.to_vec();
+    if crops.is_some() {
+        heights.insert(4, CROP_ROW_PX);
+    }
     let mut svg = String::new();
+    let mut images = String::new();
     {
-        let height: u32 = HEIGHTS.iter().sum();
+        let height: u32 = heights.iter().sum();
         let root = SVGBackend::with_string(&mut svg, (WIDTH, height)).into_drawing_area();
         root.fill(&WHITE)?;
         let mut breaks = Vec::new();
         let mut y = 0;
-        for h in &HEIGHTS[..HEIGHTS.len() - 1] {
+        for h in &heights[..heights.len() - 1] {
             y += h;
             breaks.push(y);
         }
@@ -300,11 +314,99 @@ pub fn trial_figure(
         audio_panel(&areas[2], record, audio)?;
         let video = video_marks(record, video_offset_and_delay_s);
         motion_panel(&areas[3], frames, &video)?;
-        release_panel(&areas[4], record, frames, &video)?;
-        oscillation_panel(&areas[5], record, frames)?;
+        let mut next = 4;
+        if let Some(strip) = crops {
+            images = crop_row(&areas[4], strip)?;
+            next = 5;
+        }
+        release_panel(&areas[next], record, frames, &video)?;
+        oscillation_panel(&areas[next + 1], record, frames)?;
         root.present()?;
     }
+    // Plotters' SVG backend draws no bitmaps without an image crate: the crops go in as SVG
+    // <image> elements, last, so they sit on top.
+    if let Some(end) = svg.rfind("</svg>") {
+        svg.insert_str(end, &images);
+    }
     Ok(svg)
+}
+
+/// The colour an event is drawn in across the figure.
+fn event_color(label: &str) -> RGBColor {
+    match label {
+        "loading onset" => GREEN,
+        "release" => VERMILLION,
+        "motion peak" => BLUE,
+        "fast phase end" => SKY,
+        _ => PURPLE,
+    }
+}
+
+/// The crop row: caption and labels drawn here; returns the crops themselves (images, frames
+/// and the tracked point's cross) as SVG elements in the figure's pixels.
+fn crop_row(area: &Area, strip: &CropStrip) -> Result<String, Box<dyn std::error::Error>> {
+    let crops = match strip {
+        CropStrip::Crops(c) if !c.is_empty() => c,
+        CropStrip::Crops(_) => {
+            note(area, "frames at the events: no event found")?;
+            return Ok(String::new());
+        }
+        CropStrip::Missing(why) => {
+            note(area, &format!("frames at the events: {why}"))?;
+            return Ok(String::new());
+        }
+    };
+    let marked = crops.iter().any(|c| c.point.is_some());
+    let caption = if marked {
+        "Frames at the events, one grey scale; the tracked point is the orange cross"
+    } else {
+        "Frames at the events, one grey scale, around the region that changes most"
+    };
+    area.draw(&Text::new(
+        caption,
+        (Y_AXIS_PX as i32, 4),
+        ("sans-serif", 15).into_font().color(&INK),
+    ))?;
+    let base = area.get_base_pixel();
+    let mut out = String::new();
+    for (k, crop) in crops.iter().enumerate() {
+        let x = Y_AXIS_PX as i32 + k as i32 * (CROP_CELL_PX + CROP_GAP_PX) as i32;
+        let y = 40;
+        area.draw(&Text::new(
+            crop.label,
+            (x, 24),
+            ("sans-serif", 12)
+                .into_font()
+                .color(&event_color(crop.label)),
+        ))?;
+        area.draw(&Text::new(
+            format!("frame {}, {:.4} s", crop.frame_index, crop.time_s),
+            (x, y + CROP_CELL_PX as i32 + 4),
+            ("sans-serif", 12).into_font().color(&INK),
+        ))?;
+        let (ax, ay) = (base.0 + x, base.1 + y);
+        let uri = super::crops::png_data_uri(crop)?;
+        let cell = CROP_CELL_PX;
+        out.push_str(&format!(
+            "<image class=\"frame-crop\" x=\"{ax}\" y=\"{ay}\" width=\"{cell}\" height=\"{cell}\" preserveAspectRatio=\"none\" style=\"image-rendering:pixelated\" href=\"{uri}\"/>\n<rect x=\"{ax}\" y=\"{ay}\" width=\"{cell}\" height=\"{cell}\" fill=\"none\" stroke=\"#888888\"/>\n"
+        ));
+        if let Some((px, py)) = crop.point {
+            let cx = f64::from(ax) + px * f64::from(cell);
+            let cy = f64::from(ay) + py * f64::from(cell);
+            for (width, color, class) in
+                [(4, "#222222", "outline"), (2, "#E69F00", "tracked-point")]
+            {
+                out.push_str(&format!(
+                    "<path class=\"{class}\" d=\"M{:.1} {cy:.1}H{:.1}M{cx:.1} {:.1}V{:.1}\" stroke=\"{color}\" stroke-width=\"{width}\" fill=\"none\"/>\n",
+                    cx - 7.0,
+                    cx + 7.0,
+                    cy - 7.0,
+                    cy + 7.0
+                ));
+            }
+        }
+    }
+    Ok(out)
 }
 
 /// The audio events: the main click with its band, later clicks, ticks and thumps (audio

@@ -45,6 +45,9 @@ pub struct VideoInfo {
 pub trait FrameSource {
     fn info(&self) -> &VideoInfo;
     fn next_frame(&mut self) -> Result<Option<Frame>>;
+    /// Passes over the frames before `index` without decoding them where the source can
+    /// (an image sequence's files); elsewhere does nothing, and `next_frame` reads them.
+    fn skip_to(&mut self, _index: i64) {}
 }
 
 /// File extensions (lower case) read as video containers.
@@ -119,4 +122,45 @@ pub fn fingerprint(path: &Path) -> Result<String> {
         }
     }
     Ok(hasher.finalize().to_hex().to_string())
+}
+
+/// The frames of `path` whose indices are in `wanted`, in index order, read through the video
+/// once (skipping what the source can skip, [`FrameSource::skip_to`]) and stopping at the last
+/// one wanted: only those frames are held, so memory stays flat in the video's length. An
+/// index the video lacks (a dropped frame) is left out.
+pub fn frames_at(path: &Path, wanted: &[i64]) -> Result<Vec<Frame>> {
+    let mut sorted = wanted.to_vec();
+    sorted.sort_unstable();
+    sorted.dedup();
+    if sorted.is_empty() {
+        return Ok(Vec::new());
+    }
+    let mut source = open(path)?;
+    let mut out = Vec::new();
+    // A frame read past a dropped one, kept for the next index wanted.
+    let mut ahead: Option<Frame> = None;
+    for index in sorted {
+        if ahead.as_ref().is_none_or(|f| f.index < index) {
+            ahead = None;
+            source.skip_to(index);
+        }
+        loop {
+            let frame = match ahead.take() {
+                Some(f) => f,
+                None => match source.next_frame()? {
+                    Some(f) => f,
+                    None => return Ok(out),
+                },
+            };
+            if frame.index >= index {
+                if frame.index == index {
+                    out.push(frame);
+                } else {
+                    ahead = Some(frame);
+                }
+                break;
+            }
+        }
+    }
+    Ok(out)
 }

@@ -211,6 +211,18 @@ impl FrameSource for Sequence {
         &self.info
     }
 
+    /// Moves past the files numbered before `index` unread; a lone multi-page TIFF's pages
+    /// are read in turn.
+    fn skip_to(&mut self, index: i64) {
+        let lone_tiff = self.members.len() == 1 && self.kind == ImageKind::Tiff;
+        if lone_tiff || self.pages.is_some() {
+            return;
+        }
+        while self.members.get(self.next).is_some_and(|m| m.index < index) {
+            self.next += 1;
+        }
+    }
+
     fn next_frame(&mut self) -> Result<Option<Frame>> {
         if self.pages.is_some() {
             return self.next_page();
