@@ -3,7 +3,7 @@
 //! not timed for any measure; they are listed so a person reviewing a trial sees them.
 //!
 //! The audio is averaged in blocks down to about 4 kHz, band-passed 20-400 Hz by zero-phase
-//! Butterworth filters, and the power of its envelope (the analytic signal's squared magnitude,
+//! Butterworth filters, kept at about 1 kHz, and the power of its envelope (the analytic signal's squared magnitude,
 //! so a steady hum's power does not swing with its phase) averaged over 5 ms windows. The steady background (noise,
 //! mains hum, a running motor) sets the median window energy and the spread of the window
 //! energies about it; a thump is a run of windows lasting at least
@@ -60,6 +60,9 @@ const EDGE_S: f64 = 0.025;
 /// Rate the audio is averaged down to before filtering, Hz.
 const WORKING_RATE_HZ: f64 = 4000.0;
 
+/// Rate the band-passed signal is kept at for its envelope, Hz: over twice its 400 Hz top.
+const ENVELOPE_RATE_HZ: f64 = 1000.0;
+
 /// Onsets of the thumps in `signal` (audio clock, seconds, ascending). `clicks` are the spans,
 /// audio clock, that a run may not overlap.
 pub fn detect_thumps(
@@ -68,22 +71,32 @@ pub fn detect_thumps(
     config: &ThumpConfig,
 ) -> Vec<f64> {
     let block = (signal.sample_rate_hz / WORKING_RATE_HZ).floor().max(1.0) as usize;
-    let rate_hz = signal.sample_rate_hz / block as f64;
+    let filter_rate_hz = signal.sample_rate_hz / block as f64;
     let averaged: Vec<f64> = signal
         .samples
         .chunks_exact(block)
         .map(|c| c.iter().sum::<f64>() / block as f64)
         .collect();
-    let window = ((config.window_ms * 1e-3 * rate_hz).round() as usize).max(1);
-    // Shorter than a second of windows the median is no background.
-    if averaged.len() < 40 * window {
+    // Under 40 windows (0.2 s) the median is no background.
+    if (averaged.len() as f64) < 40.0 * config.window_ms * 1e-3 * filter_rate_hz {
         return Vec::new();
     }
     let band = filtfilt(
-        &butterworth_lowpass(4, config.high_hz, rate_hz),
-        &filtfilt(&butterworth_highpass(2, config.low_hz, rate_hz), &averaged),
+        &butterworth_lowpass(4, config.high_hz, filter_rate_hz),
+        &filtfilt(
+            &butterworth_highpass(2, config.low_hz, filter_rate_hz),
+            &averaged,
+        ),
     );
-    let power = envelope_power(&band);
+    drop(averaged);
+    // The band ends at 400 Hz: every `step`-th sample (about 1 kHz) carries it, and the
+    // envelope's FFT of a long recording is a quarter the size.
+    let step = (filter_rate_hz / ENVELOPE_RATE_HZ).floor().max(1.0) as usize;
+    let rate_hz = filter_rate_hz / step as f64;
+    let kept: Vec<f64> = band.iter().step_by(step).copied().collect();
+    drop(band);
+    let window = ((config.window_ms * 1e-3 * rate_hz).round() as usize).max(1);
+    let power = envelope_power(&kept);
     let energy: Vec<f64> = power
         .chunks_exact(window)
         .map(|c| c.iter().sum::<f64>() / window as f64)
