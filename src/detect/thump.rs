@@ -3,16 +3,17 @@
 //! not timed for any measure; they are listed so a person reviewing a trial sees them.
 //!
 //! The audio is averaged in blocks down to about 4 kHz, band-passed 20-400 Hz by zero-phase
-//! Butterworth filters, kept at about 1 kHz, and the power of its envelope (the analytic signal's squared magnitude,
-//! so a steady hum's power does not swing with its phase) averaged over 5 ms windows. The steady background (noise,
-//! mains hum, a running motor) sets the median window energy and the spread of the window
-//! energies about it; a thump is a run of windows lasting at least
-//! [`ThumpConfig::min_duration_ms`] above both [`ThumpConfig::min_rise_db`] over the median and
-//! [`ThumpConfig::spread_sigmas`] robust standard deviations over it, that does not overlap a
-//! click (a loud click carries some low-frequency energy of its own) or the record's ends. A steady hum barely
-//! spreads the window energies, so a thump a few dB over the hum stands out; over noise alone
-//! the spread sets the level. Its onset is the start of the earliest window, walking back from
-//! the run, still 3 dB and three robust standard deviations over the median.
+//! Butterworth filters and kept at about 1 kHz; the power of its envelope (the analytic
+//! signal's squared magnitude, so a steady hum's power does not swing with its phase) is
+//! averaged over 5 ms windows. The steady background (noise, mains hum, a running motor) sets
+//! the median window energy and the spread of the window energies about it. A thump is a run
+//! of windows lasting at least [`ThumpConfig::min_duration_ms`] above both
+//! [`ThumpConfig::min_rise_db`] over the median and [`ThumpConfig::spread_sigmas`] robust
+//! standard deviations over it, that does not overlap a click (a loud click carries some
+//! low-frequency energy of its own) or the record's ends. A steady hum barely spreads the
+//! window energies, so a thump a few dB over the hum stands out; over noise alone the spread
+//! sets the level. Its onset is the start of the earliest window, walking back from the run,
+//! still 3 dB and three robust standard deviations over the median.
 
 use rustfft::num_complex::Complex;
 use rustfft::FftPlanner;
