@@ -625,3 +625,32 @@ fn the_terminal_summary_names_the_video_and_its_measures() {
     );
     assert!(text.contains("motion measure    pca1: "), "{text}");
 }
+
+#[test]
+fn a_video_moved_with_the_same_bytes_rewrites_its_record_with_the_new_path() {
+    let dir = tempfile::tempdir().unwrap();
+    let scene = synth::video::Scene::default();
+    render_trial(&dir.path().join("a/t01"), &scene, 1000.0, 5);
+    let manifest = dir.path().join("manifest.csv");
+    let out = dir.path().join("out");
+    let run = |folder: &str| {
+        std::fs::write(&manifest, format!("trial,video\nt01,{folder}/t01\n")).unwrap();
+        common::bin()
+            .current_dir(dir.path())
+            .args(["batch", "--fps", "1000", "--out"])
+            .arg(&out)
+            .arg(&manifest)
+            .output()
+            .unwrap()
+    };
+    assert!(run("a").status.success());
+    std::fs::rename(dir.path().join("a"), dir.path().join("b")).unwrap();
+    let second = run("b");
+    assert!(second.status.success());
+    let err = String::from_utf8_lossy(&second.stderr);
+    assert!(err.contains("1 record(s) rewritten"), "{err}");
+    let record: Value =
+        serde_json::from_slice(&std::fs::read(out.join("trials/t01.json")).unwrap()).unwrap();
+    let video = record["video_file"].as_str().unwrap();
+    assert!(video.ends_with("b/t01"), "{video}");
+}

@@ -457,8 +457,12 @@ fn process_with(
         settings_blake3: settings.to_string(),
     };
     let (audio_file, frames_file) = (path_string(&spec.audio), path_string(&spec.frames));
+    let video_file = path_string(&spec.video);
     let same_manifest = |r: &TrialRecord| {
-        r.group == spec.group && r.audio_file == audio_file && r.frames_file == frames_file
+        r.group == spec.group
+            && r.audio_file == audio_file
+            && r.frames_file == frames_file
+            && r.video_file == video_file
     };
     let done = |record, outcome| Processed {
         record,
@@ -484,6 +488,7 @@ fn process_with(
                 record.group = spec.group.clone();
                 record.audio_file = audio_file;
                 record.frames_file = frames_file;
+                record.video_file = video_file;
                 writer.write(&path, report::json::record_json(&record).as_bytes())?;
                 return Ok(done(record, TrialOutcome::Rewritten));
             }
@@ -499,6 +504,7 @@ fn process_with(
             let mut r = TrialRecord::failed(&spec.name, spec.group.as_deref(), message);
             r.audio_file = audio_file;
             r.frames_file = frames_file;
+            r.video_file = video_file;
             r
         }
         None => {
