@@ -21,6 +21,7 @@ use crate::rig::RigProfile;
 use crate::synth::{self, Family, SampleEncoding, SynthConfig, TrialKind};
 
 mod like;
+pub mod video;
 
 pub use like::{measure_like, ConditionShares, MeasuredRig};
 
@@ -103,6 +104,9 @@ pub struct ValidationReport {
     /// The trials where a scored flag or the click went wrong, to look at one by one
     /// (`latchtime synth --seed` does not reproduce them; the seed here is per trial).
     pub disagreements: Vec<Disagreement>,
+    /// Rendered video trials (`validate --video`), scored apart.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub video: Option<video::VideoValidation>,
 }
 
 /// The accuracy of one family's trials.
@@ -387,6 +391,7 @@ pub fn validate_keeping(
         flags: overall.flag_rows(),
         families,
         disagreements,
+        video: None,
     };
     (report, kept)
 }

@@ -9,9 +9,10 @@
 
 use std::path::Path;
 
-use latchtime::pipeline::{self, Scratch, TrialSpec};
+use latchtime::pipeline::Scratch;
 use latchtime::rig::RigProfile;
-use latchtime::synth::{self, video, SynthConfig, TrialKind};
+use latchtime::synth::{self, video, TrialKind};
+use latchtime::validate::video::{analyze_rendered, rendered_trial_config, score_rendered};
 
 fn median(mut v: Vec<f64>) -> f64 {
     if v.is_empty() {
@@ -81,18 +82,14 @@ fn run_cell(
     n: u64,
 ) -> Result<Row, Box<dyn std::error::Error>> {
     let mut row = Row::default();
-    let config = SynthConfig {
-        fps,
-        audio: false,
-        video_noise: 0.0,
-        ..SynthConfig::default()
-    };
+    let config = rendered_trial_config(fps, 0.4);
     // `VIDEO_COLUMN=track_px` (or `pca1`) feeds that measure instead of the automatic choice.
     let rig = RigProfile {
         fps: Some(fps),
         frames_column: std::env::var("VIDEO_COLUMN").ok(),
         ..RigProfile::default()
     };
+    let mut scratch = Scratch::default();
     for seed in 0..n {
         let name = format!("s{swing_deg}-f{}-fps{fps}-{seed}", flicker.is_some());
         let trial = synth::generate(&name, TrialKind::Normal, &config, &rig, 1000 + seed);
@@ -107,51 +104,27 @@ fn run_cell(
             seed,
             ..video::Scene::default()
         };
-        let dir = root.join(&name);
-        std::fs::create_dir_all(&dir)?;
-        for (k, img) in video::render(&trial, &scene) {
-            let bytes = video::pgm_bytes(scene.width, scene.height, &img, 255);
-            std::fs::write(dir.join(format!("f_{k:05}.pgm")), bytes)?;
-        }
-        let spec = TrialSpec {
-            name: name.clone(),
-            group: None,
-            audio: None,
-            frames: None,
-            video: Some(dir.clone()),
-        };
-        let record = pipeline::analyze_files(&spec, &rig, &mut Scratch::default());
-        std::fs::remove_dir_all(&dir)?;
+        let record = analyze_rendered(&trial, &scene, &rig, &root.join(&name), &mut scratch)?;
+        let score = score_rendered(&record, &trial.truth, fps);
         row.trials += 1;
-        match record.video_input.as_ref().map(|v| v.measure.as_str()) {
+        match score.measure.as_deref() {
             Some("pca1") => row.pca += 1,
             Some(_) => row.tracked += 1,
             None => eprintln!("{name}: {:?}", record.error),
         }
-        let truth = &trial.truth;
-        if let (Some(t), Some(r)) = (truth.latch_release_s, record.latch_release_video_s) {
-            row.release_err.push((r - t) * fps);
-        } else {
-            row.release_err.push(f64::INFINITY);
+        if let Some(err) = score.release_frames {
+            row.release_err.push(err.unwrap_or(f64::INFINITY));
         }
-        if let (Some(t), Some(r)) = (truth.motion_peak_s, record.motion_peak_s) {
-            row.peak_err.push((r - t).abs() * fps);
+        if let Some(Some(err)) = score.motion_peak_frames {
+            row.peak_err.push(err.abs());
         }
-        if let Some(t) = truth.loading_onset_s.filter(|t| *t >= 0.0) {
+        if let Some(ok) = score.loading_ok {
             row.loading_n += 1;
-            if record
-                .loading_onset_s
-                .is_some_and(|r| (r - t).abs() <= 5e-3)
-            {
-                row.loading_ok += 1;
-            }
+            row.loading_ok += usize::from(ok);
         }
-        if let Some(t) = truth.oscillation.as_ref() {
+        if let Some(ok) = score.frequency_ok {
             row.freq_n += 1;
-            let got = record.oscillation.as_ref().map(|o| o.frequency_hz);
-            if got.is_some_and(|f| (f / t.frequency_hz - 1.0).abs() <= 0.03) {
-                row.freq_ok += 1;
-            }
+            row.freq_ok += usize::from(ok);
         }
     }
     Ok(row)

@@ -91,6 +91,14 @@ struct ValidateArgs {
     /// this new or empty folder, to look at one by one.
     #[arg(long)]
     save_disagreements: Option<PathBuf>,
+    /// Also render video-only trials as image sequences (a bar swinging 30 or 3 degrees, with
+    /// and without a 100 Hz lamp) in a temporary folder, measure them from their frames and
+    /// score them in a section of their own.
+    #[arg(long)]
+    video: bool,
+    /// Number of rendered video trials (with --video), spread evenly over the four scenes.
+    #[arg(long, default_value_t = 40, requires = "video")]
+    video_count: usize,
     /// Output format.
     #[arg(long, value_enum, default_value_t = Format::Text)]
     format: Format,
@@ -584,6 +592,39 @@ fn run_synth(args: SynthArgs) -> ExitCode {
     ExitCode::SUCCESS
 }
 
+/// Runs the rendered-video validation in a new temporary folder, removed afterwards.
+fn validate_video(
+    rig: &RigProfile,
+    config: &validate::ValidateConfig,
+    count: usize,
+) -> Result<validate::video::VideoValidation, Error> {
+    let work = new_temp_dir("latchtime-validate-video")?;
+    let result = validate::video::validate_video(rig, config, count, &work);
+    let removed = std::fs::remove_dir_all(&work).map_err(|e| Error::io(&work, e));
+    let v = result?;
+    removed?;
+    Ok(v)
+}
+
+/// Creates a folder of its own under the system's temporary folder (a random name, created
+/// exclusively, so that no other process's folder is reused).
+fn new_temp_dir(prefix: &str) -> Result<PathBuf, Error> {
+    let base = std::env::temp_dir();
+    for _ in 0..16 {
+        let dir = base.join(format!("{prefix}-{:016x}", rand::random::<u64>()));
+        match std::fs::create_dir(&dir) {
+            Ok(()) => return Ok(dir),
+            Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => continue,
+            Err(e) => return Err(Error::io(&dir, e)),
+        }
+    }
+    let taken = std::io::Error::new(
+        std::io::ErrorKind::AlreadyExists,
+        "no free temporary folder name in 16 tries",
+    );
+    Err(Error::io(&base, taken))
+}
+
 fn run_validate(args: ValidateArgs) -> ExitCode {
     let rig = match load_rig(args.rig.as_deref()) {
         Ok(r) => r,
@@ -635,8 +676,14 @@ fn run_validate(args: ValidateArgs) -> ExitCode {
             );
         }
     }
-    let (report, kept) =
+    let (mut report, kept) =
         validate::validate_keeping(&rig, &config, args.save_disagreements.is_some());
+    if args.video {
+        match validate_video(&rig, &config, args.video_count) {
+            Ok(v) => report.video = Some(v),
+            Err(e) => return fail(EXIT_OUTPUT, e),
+        }
+    }
     if let Some(dir) = &args.save_disagreements {
         if let Err(e) = std::fs::create_dir_all(dir) {
             return fail(EXIT_OUTPUT, format!("{}: {e}", dir.display()));

@@ -2,6 +2,7 @@
 
 use std::fmt::Write;
 
+use crate::validate::video::{Share, VideoEvent, VideoValidation};
 use crate::validate::{EventAccuracy, FamilyAccuracy, MeasuredRig, ValidationReport};
 
 /// Disagreeing trials listed in the text table.
@@ -113,7 +114,74 @@ pub fn render(r: &ValidationReport) -> String {
             );
         }
     }
+    if let Some(v) = &r.video {
+        let _ = writeln!(s);
+        s.push_str(&render_video(v));
+    }
     s
+}
+
+/// The rendered-video section: one row per scene and the pooled row, then the targets.
+pub fn render_video(v: &VideoValidation) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "rendered video: {} video-only trials at {} fps, {} x {} px PGM sequences, camera noise {} grey levels, lamp {} Hz +- {}, seed {}",
+        v.trials, v.fps, v.width_px, v.height_px, v.noise_grey, v.lamp_hz, v.lamp_depth, v.seed
+    );
+    let _ = writeln!(
+        s,
+        "{:<22} {:>6} {:>6} {:>11} {:>22} {:>22} {:>10} {:>10}",
+        "scene",
+        "trials",
+        "errors",
+        "track/pca1",
+        "release n/miss/med/p95",
+        "peak n/miss/med/p95",
+        "load 5 ms",
+        "freq 3 %"
+    );
+    for row in &v.scenes {
+        let _ = writeln!(
+            s,
+            "{:<22} {:>6} {:>6} {:>11} {:>22} {:>22} {:>10} {:>10}",
+            row.scene,
+            row.trials,
+            row.errors,
+            format!("{}/{}", row.measure_track, row.measure_pca),
+            frames(&row.release),
+            frames(&row.motion_peak),
+            share(&row.loading_within_5_ms),
+            share(&row.frequency_within_3_pct)
+        );
+    }
+    let _ = writeln!(s, "video targets (all scenes pooled):");
+    for t in &v.targets {
+        let _ = writeln!(
+            s,
+            "  {:<38} {:>7} target {:<8} {}",
+            t.name,
+            num(t.value, 3),
+            t.target,
+            if t.met { "met" } else { "NOT met" }
+        );
+    }
+    s
+}
+
+/// n/misses/median/p95 of an event, frames.
+fn frames(e: &VideoEvent) -> String {
+    format!(
+        "{}/{}/{}/{}",
+        e.n,
+        e.misses,
+        num(e.median_abs_error_frames, 2),
+        num(e.p95_abs_error_frames, 2)
+    )
+}
+
+fn share(x: &Share) -> String {
+    format!("{}/{}", x.ok, x.n)
 }
 
 /// One block per family: its events, then the flags its trials raise or should raise.
@@ -193,4 +261,59 @@ pub fn render_measured(m: &MeasuredRig, folder: &std::path::Path) -> String {
         share(sh.rounded_stamps)
     );
     s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::validate::video::{VideoScene, VideoTarget};
+
+    #[test]
+    fn the_video_section_lists_each_scene_and_says_which_targets_are_missed() {
+        let event = VideoEvent {
+            n: 2,
+            misses: 1,
+            median_abs_error_frames: Some(0.25),
+            p95_abs_error_frames: Some(0.5),
+        };
+        let ok = Share {
+            ok: 1,
+            n: 2,
+            share: Some(0.5),
+        };
+        let v = VideoValidation {
+            trials: 2,
+            fps: 2000.0,
+            seed: 3,
+            width_px: 160,
+            height_px: 120,
+            noise_grey: 2.0,
+            lamp_hz: 100.0,
+            lamp_depth: 0.04,
+            scenes: vec![VideoScene {
+                scene: "30 deg, no lamp".into(),
+                swing_deg: Some(30.0),
+                lamp_hz: None,
+                trials: 2,
+                errors: 0,
+                measure_track: 2,
+                measure_pca: 0,
+                release: event.clone(),
+                motion_peak: event,
+                loading_within_5_ms: ok.clone(),
+                frequency_within_3_pct: ok,
+            }],
+            targets: vec![VideoTarget {
+                name: "loading onset within 5 ms, share".into(),
+                target: ">= 0.80".into(),
+                value: Some(0.5),
+                met: false,
+            }],
+        };
+        let text = render_video(&v);
+        assert!(text.starts_with("rendered video: 2 video-only trials at 2000 fps"));
+        assert!(text.contains("30 deg, no lamp"), "{text}");
+        assert!(text.contains("2/1/0.25/0.50"), "{text}");
+        assert!(text.contains("0.500 target >= 0.80  NOT met"), "{text}");
+    }
 }

@@ -4,11 +4,14 @@
 //! lamp flicker. Pixels are 8-bit grey levels (0-255) as floats; edges are anti-aliased by
 //! the share of each pixel the bar covers (a one-pixel linear ramp).
 
+use std::path::Path;
+
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 
 use super::SynthTrial;
+use crate::error::Error;
 
 /// What the camera sees.
 #[derive(Debug, Clone, PartialEq)]
@@ -206,4 +209,18 @@ pub fn pgm_bytes(width: usize, height: usize, grey: &[f32], maxval: u16) -> Vec<
         }
     }
     out
+}
+
+/// Renders every frame of `trial` into `dir` (created if missing) as an 8-bit PGM sequence,
+/// `f_000000.pgm` on, named by frame index; returns the number of frames written.
+pub fn write_pgm_sequence(dir: &Path, trial: &SynthTrial, scene: &Scene) -> Result<usize, Error> {
+    std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+    let mut written = 0;
+    for (k, img) in render(trial, scene) {
+        let path = dir.join(format!("f_{k:06}.pgm"));
+        let bytes = pgm_bytes(scene.width, scene.height, &img, 255);
+        std::fs::write(&path, bytes).map_err(|e| Error::io(&path, e))?;
+        written += 1;
+    }
+    Ok(written)
 }
