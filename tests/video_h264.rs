@@ -110,3 +110,38 @@ fn a_truncated_stream_is_an_error_naming_the_file_never_a_panic() {
         assert!(err.contains(&format!("cut-{keep}.mp4")), "{err}");
     }
 }
+
+#[test]
+fn a_stream_cut_after_its_sample_table_is_an_error_naming_the_file_and_sample() {
+    let path = data("bar-64x48-40frames-240fps-x264-baseline-faststart-cut-at-60-percent.mp4");
+    let err = read_all(&path).err().unwrap().to_string();
+    assert!(err.contains("faststart-cut-at-60-percent.mp4"), "{err}");
+    assert!(err.contains("past the end of the file"), "{err}");
+}
+
+#[test]
+fn damaged_bytes_anywhere_give_frames_or_an_error_never_a_panic() {
+    // Fixed-seed corruption (a xorshift walk): 300 copies of the B-frame stream with 1-4 bytes
+    // replaced each, covering the sample data and the sample table.
+    let dir = tempfile::tempdir().unwrap();
+    let bytes = std::fs::read(data("bar-64x48-40frames-240fps-x264-high-bframes.mp4")).unwrap();
+    let mut state = 0x9E37_79B9_7F4A_7C15u64;
+    let mut next = move || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        state
+    };
+    let path = dir.path().join("damaged.mp4");
+    for _ in 0..300 {
+        let mut copy = bytes.clone();
+        for _ in 0..=(next() % 4) {
+            let at = (next() % copy.len() as u64) as usize;
+            copy[at] = next() as u8;
+        }
+        std::fs::write(&path, &copy).unwrap();
+        if let Err(e) = read_all(&path) {
+            assert!(e.to_string().contains("damaged.mp4"), "{e}");
+        }
+    }
+}

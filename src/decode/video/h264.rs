@@ -159,7 +159,7 @@ fn frame_indices(
     let period = period.max(1);
     let mut out: Vec<i64> = Vec::with_capacity(sorted_pts.len());
     for (k, &t) in sorted_pts.iter().enumerate() {
-        let index = ((t - first) as f64 / period as f64).round() as i64;
+        let index = (t.saturating_sub(first) as f64 / period as f64).round() as i64;
         if out.last().is_some_and(|&last| index <= last) {
             return Err(format!(
                 "frames {} and {k} are presented closer together than half the frame period ({period} of 1/time-scale units)",

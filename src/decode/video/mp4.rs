@@ -56,7 +56,7 @@ impl VideoTrack {
         pts.sort_unstable();
         let mut steps: Vec<i64> = pts
             .windows(2)
-            .map(|w| w[1] - w[0])
+            .map(|w| w[1].saturating_sub(w[0]))
             .filter(|&d| d > 0)
             .collect();
         steps.sort_unstable();
@@ -78,18 +78,18 @@ impl VideoTrack {
 /// Whether `path` is an MP4/MOV file holding a video track. Anything unreadable is `false`:
 /// discovery then takes a `.mp4` as audio, whose decoder reports what is wrong.
 pub fn has_video_track(path: &Path) -> bool {
-    read_moov(path).is_ok_and(|moov| video_trak(&moov).is_some())
+    read_moov(path).is_ok_and(|(moov, _)| video_trak(&moov).is_some())
 }
 
 /// Reads the first video track of `path`; an error names the file and what is missing.
 pub fn read_video_track(path: &Path) -> Result<VideoTrack> {
-    let moov = read_moov(path)?;
+    let (moov, file_len) = read_moov(path)?;
     let trak = video_trak(&moov).ok_or_else(|| Error::malformed(path, "no video track"))?;
-    parse_trak(trak).map_err(|reason| Error::malformed(path, reason))
+    parse_trak(trak, file_len).map_err(|reason| Error::malformed(path, reason))
 }
 
-/// The `moov` box body, read by walking the top-level boxes of the file.
-fn read_moov(path: &Path) -> Result<Vec<u8>> {
+/// The `moov` box body, read by walking the top-level boxes of the file, and the file's length.
+fn read_moov(path: &Path) -> Result<(Vec<u8>, u64)> {
     let mut file = File::open(path).map_err(|e| Error::io(path, e))?;
     let len = file.metadata().map_err(|e| Error::io(path, e))?.len();
     let mut at = 0u64;
@@ -130,7 +130,7 @@ fn read_moov(path: &Path) -> Result<Vec<u8>> {
             file.seek(SeekFrom::Start(at + header))
                 .map_err(|e| Error::io(path, e))?;
             file.read_exact(&mut moov).map_err(|e| Error::io(path, e))?;
-            return Ok(moov);
+            return Ok((moov, len));
         }
         at += size;
     }
@@ -167,12 +167,12 @@ fn need<'a>(parent: &'a [u8], path: &[&[u8; 4]]) -> Parse<&'a [u8]> {
     Ok(at)
 }
 
-fn parse_trak(trak: &[u8]) -> Parse<VideoTrack> {
+fn parse_trak(trak: &[u8], file_len: u64) -> Parse<VideoTrack> {
     let mdia = need(trak, &[b"mdia"])?;
     let scale = timescale(need(mdia, &[b"mdhd"])?).ok_or("video track has a bad mdhd box")?;
     let stbl = need(mdia, &[b"minf", b"stbl"])?;
     let (codec, avcc) = sample_entry(need(stbl, &[b"stsd"])?)?;
-    let sizes = sample_sizes(need(stbl, &[b"stsz"])?)?;
+    let sizes = sample_sizes(need(stbl, &[b"stsz"])?, file_len)?;
     let offsets = sample_offsets(stbl, &sizes)?;
     let pts = presentation_times(stbl, sizes.len())?;
     let sync = sync_samples(child(stbl, b"stss"), sizes.len())?;
@@ -219,13 +219,16 @@ fn sample_entry(stsd: &[u8]) -> Parse<(String, Option<Vec<u8>>)> {
     Ok((kind(k), avcc))
 }
 
-fn sample_sizes(stsz: &[u8]) -> Parse<Vec<u32>> {
+/// Sample sizes (`stsz`). With one size for all, the samples must fit in the file, which bounds
+/// what a damaged count can make us allocate.
+fn sample_sizes(stsz: &[u8], file_len: u64) -> Parse<Vec<u32>> {
     let fixed = be_u32(stsz, 4).ok_or("stsz box is truncated")?;
     if fixed != 0 {
         let count = be_u32(stsz, 8).ok_or("stsz box is truncated")?;
-        // Each sample needs at least one byte of the file, so the count cannot exceed it.
-        if u64::from(count) > u64::from(u32::MAX) / u64::from(fixed).max(1) {
-            return Err(format!("stsz box lists {count} samples of {fixed} bytes"));
+        if u64::from(count) * u64::from(fixed) > file_len {
+            return Err(format!(
+                "stsz box lists {count} samples of {fixed} bytes, more than the file's {file_len}"
+            ));
         }
         return Ok(vec![fixed; count as usize]);
     }
@@ -275,7 +278,7 @@ fn sample_offsets(stbl: &[u8], sizes: &[u32]) -> Parse<Vec<u64>> {
                     return Ok(out);
                 };
                 out.push(at);
-                at += u64::from(size);
+                at = at.saturating_add(u64::from(size));
             }
         }
     }
@@ -301,7 +304,7 @@ fn presentation_times(stbl: &[u8], count: usize) -> Parse<Vec<i64>> {
                 break;
             }
             pts.push(dts);
-            dts += i64::from(delta);
+            dts = dts.saturating_add(i64::from(delta));
         }
     }
     if pts.len() < count {
@@ -316,7 +319,7 @@ fn presentation_times(stbl: &[u8], count: usize) -> Parse<Vec<i64>> {
             let n = be_u32(e, 0).unwrap_or(0) as usize;
             let offset = i64::from(be_u32(e, 4).unwrap_or(0) as i32);
             for p in pts.iter_mut().skip(i).take(n) {
-                *p += offset;
+                *p = p.saturating_add(offset);
             }
             i += n;
         }
@@ -365,6 +368,16 @@ mod tests {
         assert_eq!(t.period(), Some(1));
         assert_eq!(t.fps(), Some(240.0));
         assert_eq!(track(&[5]).period(), None);
+    }
+
+    #[test]
+    fn one_size_for_all_samples_must_fit_in_the_file() {
+        let mut stsz = vec![0u8; 12];
+        stsz[4..8].copy_from_slice(&1u32.to_be_bytes());
+        stsz[8..12].copy_from_slice(&u32::MAX.to_be_bytes());
+        assert!(sample_sizes(&stsz, 1 << 20).is_err());
+        stsz[8..12].copy_from_slice(&3u32.to_be_bytes());
+        assert_eq!(sample_sizes(&stsz, 1 << 20), Ok(vec![1, 1, 1]));
     }
 
     #[test]

@@ -72,3 +72,29 @@ if __name__ == "__main__":
           Fraction(1, 240), 1)
     with open("reference-sums.json", "w") as f:
         f.write(json.dumps(ref, separators=(",", ":")).replace("},{", "},\n{") + "\n")
+
+
+def faststart_cut():
+    """The baseline stream with its moov box first (faststart), cut at 60 % of its bytes: the
+    sample table lists samples past the end of the file."""
+    name = "bar-64x48-40frames-240fps-x264-baseline-faststart-cut-at-60-percent.mp4"
+    whole = "faststart.mp4"
+    with av.open(whole, "w", options={"movflags": "faststart"}) as out:
+        s = out.add_stream("libx264", rate=240, options={"profile": "baseline", "crf": "23"})
+        s.width, s.height, s.pix_fmt = W, H, "yuv420p"
+        for k in range(N):
+            f = av.VideoFrame.from_ndarray(picture(k), format="rgb24")
+            f.pts = k
+            f.time_base = Fraction(1, 240)
+            for p in s.encode(f):
+                out.mux(p)
+        for p in s.encode(None):
+            out.mux(p)
+    data = open(whole, "rb").read()
+    open(name, "wb").write(data[: len(data) * 6 // 10])
+    import os
+    os.remove(whole)
+
+
+if __name__ == "__main__":
+    faststart_cut()
