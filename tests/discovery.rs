@@ -198,3 +198,40 @@ fn a_folder_without_trials_is_warned_about_and_leaves_the_results_alone() {
     let o = batch_within_a_minute(&empty, &out, &["--strict"]);
     assert_eq!(o.status.code(), Some(4));
 }
+
+#[test]
+fn an_mp4_with_a_video_track_is_the_trials_video_and_an_audio_only_mp4_stays_audio() {
+    let dir = tempfile::tempdir().unwrap();
+    let data = common::repo().join("tests/data");
+    let h264 = data.join("video/h264/bar-64x48-40frames-240fps-x264-baseline.mp4");
+    std::fs::copy(
+        data.join("click-48kHz-16bit-mono.wav"),
+        dir.path().join("t1.wav"),
+    )
+    .unwrap();
+    std::fs::copy(&h264, dir.path().join("t1.mp4")).unwrap();
+    // AAC in MP4 (ffmpeg's .m4a, renamed): no video track.
+    std::fs::copy(
+        data.join("click-48kHz-mono-ffmpeg-aac.m4a"),
+        dir.path().join("t2.mp4"),
+    )
+    .unwrap();
+    std::fs::copy(&h264, dir.path().join("t3.MOV")).unwrap();
+    let trials = latchtime::batch::discover::discover(dir.path()).unwrap();
+    let names = |f: fn(&latchtime::pipeline::TrialSpec) -> Option<&Path>| -> Vec<Option<String>> {
+        trials
+            .iter()
+            .map(|t| f(&t.spec).map(|p| p.file_name().unwrap().to_string_lossy().into_owned()))
+            .collect()
+    };
+    assert_eq!(trials.len(), 3);
+    assert_eq!(
+        names(|s| s.audio.as_deref()),
+        [Some("t1.wav".into()), Some("t2.mp4".into()), None]
+    );
+    assert_eq!(
+        names(|s| s.video.as_deref()),
+        [Some("t1.mp4".into()), None, Some("t3.MOV".into())]
+    );
+    assert!(trials.iter().all(|t| t.problem.is_none()));
+}

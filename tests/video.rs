@@ -15,15 +15,7 @@ fn data(name: &str) -> PathBuf {
     common::repo().join("tests/data/video").join(name)
 }
 
-/// Every frame of a video, through the streaming reader.
-fn read_all(path: &Path) -> Result<Vec<Frame>, latchtime::error::Error> {
-    let mut source = video::open(path)?;
-    let mut out = Vec::new();
-    while let Some(f) = source.next_frame()? {
-        out.push(f);
-    }
-    Ok(out)
-}
+use common::read_all_frames as read_all;
 
 /// The committed files' source: frame k, pixel (x, y) = min(255, 40 + 4x + 3y + 5k).
 fn gradient(k: usize, x: usize, y: usize) -> f32 {
@@ -653,4 +645,20 @@ fn a_video_moved_with_the_same_bytes_rewrites_its_record_with_the_new_path() {
         serde_json::from_slice(&std::fs::read(out.join("trials/t01.json")).unwrap()).unwrap();
     let video = record["video_file"].as_str().unwrap();
     assert!(video.ends_with("b/t01"), "{video}");
+}
+
+/// Without the `h264` feature, an H.264 MP4 is an error that says how to build with it; an
+/// HEVC one names its codec either way (`tests/video_h264.rs` covers the feature).
+#[cfg(not(feature = "h264"))]
+#[test]
+fn an_h264_mp4_without_the_feature_says_to_build_with_it() {
+    let path = data("h264/bar-64x48-40frames-240fps-x264-baseline.mp4");
+    let err = video::open(&path).err().unwrap().to_string();
+    assert!(
+        err.contains("baseline.mp4") && err.contains("--features h264"),
+        "{err}"
+    );
+    let hevc = data("h264/bar-64x48-40frames-240fps-x265.mp4");
+    let err = video::open(&hevc).err().unwrap().to_string();
+    assert!(err.contains("x265.mp4") && err.contains("HEVC"), "{err}");
 }

@@ -2,7 +2,8 @@
 //! beside it when present; a lone `NAME.frames.csv` is a video-only trial) or a manifest CSV
 //! with header `trial,audio,frames,group`, paths relative to the manifest. With `recursive`,
 //! subfolders are searched too and a trial's name is its path relative to the folder
-//! (`day1/t01`). Discovery also notices what a person probably meant but did not write: no
+//! (`day1/t01`). A trial's video is `NAME.avi`, `NAME.mov`, `NAME.mp4` holding a video track
+//! (an `.mp4` without one is audio), or a folder `NAME/` of one image sequence. Discovery also notices what a person probably meant but did not write: no
 //! trial at all, inputs in subfolders that are not searched, and frames files named almost
 //! like a trial's (`NAME.csv` beside `NAME.wav`).
 //!
@@ -74,7 +75,7 @@ pub struct Discovery {
     pub warnings: Vec<Warning>,
 }
 
-/// Whether a file name is a video container (`NAME.avi`).
+/// Whether a file name is a video container by name alone (`NAME.avi`, `NAME.mov`).
 fn is_video(name: &str) -> bool {
     video::is_video_file(Path::new(name))
 }
@@ -206,7 +207,9 @@ fn discover_folder(root: &Path, options: &DiscoverOptions) -> Result<Discovery> 
             let trial = format!("{prefix}{}", trial_name(Path::new(&name)));
             if name.ends_with(FRAMES_SUFFIX) {
                 walk.frames.insert(trial, (path, problem));
-            } else if is_video(&name) {
+            } else if video::is_video_path(&path) {
+                // `.avi`, `.mov`, or a `.mp4` holding a video track; an audio-only `.mp4`
+                // stays audio.
                 walk.video.insert(trial, (path, problem));
             } else {
                 walk.audio.entry(trial).or_default().push((path, problem));

@@ -57,6 +57,11 @@ pub enum Stage {
         #[arg(long)]
         input: PathBuf,
     },
+    /// Decode a video and give each frame's index and the sum of its luma.
+    VideoSums {
+        #[arg(long)]
+        video: PathBuf,
+    },
 }
 
 #[derive(Args, Debug)]
@@ -162,5 +167,22 @@ pub fn run(stage: &Stage) -> Result<serde_json::Value> {
             let x = read_f64(input)?;
             Ok(serde_json::to_value(groups::stats(&x)).unwrap_or(serde_json::Value::Null))
         }
+        Stage::VideoSums { video } => video_sums(video),
     }
+}
+
+/// Each frame's index and luma sum (f64, exact for 8-bit frames up to 2^53 / 255 pixels).
+fn video_sums(path: &Path) -> Result<serde_json::Value> {
+    let mut source = decode::video::open(path)?;
+    let mut frames = Vec::new();
+    while let Some(f) = source.next_frame()? {
+        let sum: f64 = f.luma.iter().map(|&v| f64::from(v)).sum();
+        frames.push(json!({ "index": f.index, "luma_sum": sum }));
+    }
+    let info = source.info();
+    Ok(json!({
+        "format": info.format,
+        "container_fps": info.container_fps,
+        "frames": frames,
+    }))
 }

@@ -42,7 +42,7 @@ enum Command {
     Trial(TrialArgs),
     /// Analyse every trial of a folder or manifest into an output folder.
     Batch(BatchArgs),
-    /// Measure a video (image-sequence folder or AVI) and write its per-frame measures as CSV.
+    /// Measure a video (image-sequence folder, AVI, or H.264 MP4/MOV) and write its per-frame measures as CSV.
     Frames(FramesArgs),
     /// Rebuild summary.csv and groups.csv of an output folder from its records.
     Summarize(SummarizeArgs),
@@ -234,7 +234,7 @@ struct TrialArgs {
     /// Frame CSV of the trial.
     #[arg(long)]
     frames: Option<PathBuf>,
-    /// Video of the trial: a folder holding one image sequence, or an AVI file.
+    /// Video of the trial: a folder holding one image sequence, an AVI file, or an H.264 MP4/MOV file (feature h264).
     #[arg(long)]
     video: Option<PathBuf>,
     #[command(flatten)]
@@ -246,7 +246,7 @@ struct TrialArgs {
 
 #[derive(Args, Debug)]
 struct FramesArgs {
-    /// The video: a folder holding one image sequence, or an AVI file.
+    /// The video: a folder holding one image sequence, an AVI file, or an H.264 MP4/MOV file (feature h264).
     video: PathBuf,
     /// CSV file to write (default: standard output).
     #[arg(long)]

@@ -11,7 +11,7 @@ pub(crate) struct AudioEdit {
 }
 
 /// Boxes of `bytes` as (type, body).
-fn boxes(bytes: &[u8]) -> impl Iterator<Item = (&[u8], &[u8])> {
+pub(crate) fn boxes(bytes: &[u8]) -> impl Iterator<Item = (&[u8], &[u8])> {
     let mut at = 0usize;
     std::iter::from_fn(move || {
         let header = bytes.get(at..at.checked_add(8)?)?;
@@ -36,20 +36,20 @@ fn boxes(bytes: &[u8]) -> impl Iterator<Item = (&[u8], &[u8])> {
     })
 }
 
-fn child<'a>(bytes: &'a [u8], kind: &[u8]) -> Option<&'a [u8]> {
+pub(crate) fn child<'a>(bytes: &'a [u8], kind: &[u8]) -> Option<&'a [u8]> {
     boxes(bytes).find(|(k, _)| *k == kind).map(|(_, b)| b)
 }
 
-fn be_u32(b: &[u8], at: usize) -> Option<u32> {
+pub(crate) fn be_u32(b: &[u8], at: usize) -> Option<u32> {
     Some(u32::from_be_bytes(b.get(at..at + 4)?.try_into().ok()?))
 }
 
-fn be_u64(b: &[u8], at: usize) -> Option<u64> {
+pub(crate) fn be_u64(b: &[u8], at: usize) -> Option<u64> {
     Some(u64::from_be_bytes(b.get(at..at + 8)?.try_into().ok()?))
 }
 
 /// Time scale of an `mvhd` or `mdhd` box (version 0: 32-bit times, version 1: 64-bit).
-fn timescale(full_box: &[u8]) -> Option<u32> {
+pub(crate) fn timescale(full_box: &[u8]) -> Option<u32> {
     let at = if *full_box.first()? == 1 { 20 } else { 12 };
     be_u32(full_box, at).filter(|&t| t > 0)
 }

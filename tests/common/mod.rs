@@ -130,3 +130,15 @@ pub fn compare(record: &Value, truth: &Value, tol: &Tolerance) -> Vec<String> {
     }
     problems
 }
+
+/// Every frame of a video, through the streaming reader.
+pub fn read_all_frames(
+    path: &Path,
+) -> Result<Vec<latchtime::decode::video::Frame>, latchtime::error::Error> {
+    let mut source = latchtime::decode::video::open(path)?;
+    let mut out = Vec::new();
+    while let Some(f) = source.next_frame()? {
+        out.push(f);
+    }
+    Ok(out)
+}

@@ -1,7 +1,8 @@
 //! Video decoding: a camera's own files into a stream of greyscale frames, one at a time, so
 //! memory stays flat in the video's length. Two sources: a folder holding one numbered image
-//! sequence ([`sequence`]: TIFF including multi-page, PNG, JPEG, BMP, PGM/PPM) and an AVI file
-//! ([`avi`]: raw or MJPEG, read with a small RIFF reader).
+//! sequence ([`sequence`]: TIFF including multi-page, PNG, JPEG, BMP, PGM/PPM), an AVI file
+//! ([`avi`]: raw or MJPEG, read with a small RIFF reader), and, with the cargo feature `h264`,
+//! an MP4/MOV file holding H.264 ([`mp4`] reads the sample table, `h264` decodes).
 //!
 //! Colour is converted to luma with the ITU-R BT.601 weights (Y = 0.299 R + 0.587 G +
 //! 0.114 B), the weights JPEG/JFIF uses for its own Y channel, so a colour JPEG's luma is
@@ -9,7 +10,10 @@
 //! 0-255, 16-bit data 0-65535, and a 12-bit PGM (maxval 4095) 0-4095, never rescaled.
 
 pub mod avi;
+#[cfg(feature = "h264")]
+pub mod h264;
 pub mod image;
+pub mod mp4;
 pub mod sequence;
 
 use std::path::Path;
@@ -32,9 +36,10 @@ pub struct Frame {
 /// What a video source is, learnt when it is opened.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct VideoInfo {
-    /// `tiff`, `png`, `jpeg`, `bmp`, `pnm`, `avi-raw` or `avi-mjpeg`.
+    /// `tiff`, `png`, `jpeg`, `bmp`, `pnm`, `avi-raw`, `avi-mjpeg`, `mp4-h264` or `mov-h264`.
     pub format: String,
-    /// Frame rate the container states (AVI), frames per second; None for image sequences.
+    /// Frame rate the container states (AVI; MP4/MOV: time scale over the most common frame
+    /// step), frames per second; None for image sequences.
     pub container_fps: Option<f64>,
     /// Frames the source lists (files, pages or chunks), before decoding.
     pub frames_listed: u64,
@@ -50,29 +55,90 @@ pub trait FrameSource {
     fn skip_to(&mut self, _index: i64) {}
 }
 
-/// File extensions (lower case) read as video containers.
-pub const VIDEO_EXTENSIONS: [&str; 1] = ["avi"];
+/// File extensions (lower case) always read as video containers. A `.mp4` is video only when
+/// it holds a video track ([`is_video_path`]); otherwise it is audio (AAC in MP4).
+pub const VIDEO_EXTENSIONS: [&str; 2] = ["avi", "mov"];
 
-/// Whether `path` names a video container by its extension.
-pub fn is_video_file(path: &Path) -> bool {
+fn extension(path: &Path) -> Option<String> {
     path.extension()
         .and_then(|e| e.to_str())
-        .is_some_and(|e| VIDEO_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
+        .map(str::to_ascii_lowercase)
 }
 
-/// Opens a trial's video: a folder of one image sequence or an AVI file.
+/// Whether `path` names a video container by its extension alone (`.avi`, `.mov`).
+pub fn is_video_file(path: &Path) -> bool {
+    extension(path).is_some_and(|e| VIDEO_EXTENSIONS.contains(&e.as_str()))
+}
+
+/// Whether `path` is a video file: `.avi` or `.mov` by name, or a `.mp4` holding a video track
+/// (this reads the file's `moov` box).
+pub fn is_video_path(path: &Path) -> bool {
+    is_video_file(path) || (extension(path).as_deref() == Some("mp4") && mp4::has_video_track(path))
+}
+
+/// Opens a trial's video: a folder of one image sequence, an AVI file, or an MP4/MOV file
+/// (H.264, with the cargo feature `h264`).
 pub fn open(path: &Path) -> Result<Box<dyn FrameSource>> {
     let meta = std::fs::metadata(path).map_err(|e| Error::io(path, e))?;
     if meta.is_dir() {
         return Ok(Box::new(sequence::Sequence::open(path)?));
     }
-    if is_video_file(path) {
-        return Ok(Box::new(avi::AviSource::open(path)?));
+    match extension(path).as_deref() {
+        Some("avi") => Ok(Box::new(avi::AviSource::open(path)?)),
+        Some(ext @ ("mp4" | "mov")) => open_mp4(path, ext),
+        _ => Err(Error::Unsupported {
+            path: path.to_path_buf(),
+            reason: "a video is a folder of numbered images or an .avi, .mp4 or .mov file".into(),
+        }),
     }
-    Err(Error::Unsupported {
-        path: path.to_path_buf(),
-        reason: "a video is a folder of numbered images or an .avi file".into(),
-    })
+}
+
+/// Opens an MP4/MOV file: its first video track must hold H.264, and the build must have the
+/// `h264` feature.
+fn open_mp4(path: &Path, ext: &str) -> Result<Box<dyn FrameSource>> {
+    let track = mp4::read_video_track(path)?;
+    if !track.is_h264() {
+        return Err(Error::Unsupported {
+            path: path.to_path_buf(),
+            reason: format!(
+                "the video track is coded as {:?} ({}); latchtime decodes H.264 (avc1/avc3) only",
+                track.codec,
+                codec_name(&track.codec)
+            ),
+        });
+    }
+    #[cfg(feature = "h264")]
+    {
+        Ok(Box::new(h264::H264Source::open(
+            path,
+            track,
+            format!("{ext}-h264"),
+        )?))
+    }
+    #[cfg(not(feature = "h264"))]
+    {
+        let _ = ext;
+        Err(Error::Unsupported {
+            path: path.to_path_buf(),
+            reason: "H.264 video in MP4/MOV needs latchtime built with the h264 feature: \
+                     cargo build --release --features h264"
+                .into(),
+        })
+    }
+}
+
+/// A codec's common name from its sample entry type.
+fn codec_name(entry: &str) -> &'static str {
+    match entry {
+        "hvc1" | "hev1" => "HEVC/H.265",
+        "avc1" | "avc3" => "H.264",
+        "mp4v" => "MPEG-4 Part 2",
+        "av01" => "AV1",
+        "vp09" => "VP9",
+        "jpeg" | "mjpa" | "mjpb" => "Motion JPEG",
+        "apcn" | "apch" | "apcs" | "apco" | "ap4h" => "Apple ProRes",
+        _ => "an unknown codec",
+    }
 }
 
 /// Luma of one RGB pixel, ITU-R BT.601 weights.
