@@ -270,3 +270,20 @@ fn validate_saves_the_trials_that_disagree_and_refuses_a_folder_in_use() {
     // Running again into the same folder would mix two runs: refused as a usage error.
     bin().args(args).assert().code(2);
 }
+
+#[test]
+fn a_reader_that_closes_the_pipe_early_is_no_panic() {
+    // `latchtime validate ... | head -1`: the reader goes away before the output is written.
+    let exe = assert_cmd::cargo::cargo_bin("latchtime");
+    let mut child = std::process::Command::new(exe)
+        .args(["validate", "--count", "2", "--format", "json"])
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    drop(child.stdout.take());
+    let out = child.wait_with_output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(!err.contains("panicked"), "{err}");
+    assert!(out.status.success(), "{:?} {err}", out.status);
+}

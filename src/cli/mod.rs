@@ -399,6 +399,20 @@ fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
     ExitCode::from(code)
 }
 
+/// Writes `text` to standard output. A reader that closed the pipe early (`| head`) is no error
+/// of ours: the rest is dropped. Any other write error is reported, with `code`, instead of
+/// the panic `print!` would raise.
+fn emit(text: &str, code: ExitCode) -> ExitCode {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => {
+            fail(EXIT_OUTPUT, format!("cannot write to standard output: {e}"))
+        }
+        _ => code,
+    }
+}
+
 /// The rig profile at `path`, or the defaults without one.
 fn load_rig(path: Option<&Path>) -> Result<RigProfile, Error> {
     path.map_or_else(|| Ok(RigProfile::default()), RigProfile::from_path)
@@ -469,10 +483,7 @@ pub fn run() -> ExitCode {
         Command::Report(args) => campaign::run_report_command(args),
         Command::Validate(args) => run_validate(args),
         Command::Inspect(stage) => match inspect::run(&stage) {
-            Ok(value) => {
-                println!("{value}");
-                ExitCode::SUCCESS
-            }
+            Ok(value) => emit(&format!("{value}\n"), ExitCode::SUCCESS),
             Err(e) => fail(EXIT_TRIAL_FAILED, e),
         },
     }
@@ -499,15 +510,16 @@ fn run_trial(args: TrialArgs) -> ExitCode {
         video: args.video.clone(),
     };
     let record = pipeline::analyze_files(&spec, &rig, &mut Scratch::default());
-    match args.format {
-        Format::Json => print!("{}", report::json::record_json(&record)),
-        Format::Text => print!("{}", report::text::render(&record)),
-    }
-    if record.status == Status::Error {
+    let text = match args.format {
+        Format::Json => report::json::record_json(&record),
+        Format::Text => report::text::render(&record),
+    };
+    let code = if record.status == Status::Error {
         ExitCode::from(EXIT_TRIAL_FAILED)
     } else {
         ExitCode::SUCCESS
-    }
+    };
+    emit(&text, code)
 }
 
 fn run_frames(args: FramesArgs) -> ExitCode {
@@ -525,10 +537,7 @@ fn run_frames(args: FramesArgs) -> ExitCode {
             Ok(()) => ExitCode::SUCCESS,
             Err(e) => fail(EXIT_TRIAL_FAILED, e),
         },
-        None => {
-            print!("{text}");
-            ExitCode::SUCCESS
-        }
+        None => emit(&text, ExitCode::SUCCESS),
     }
 }
 
@@ -694,12 +703,12 @@ fn run_validate(args: ValidateArgs) -> ExitCode {
             }
         }
     }
-    match args.format {
+    let text = match args.format {
         Format::Json => match serde_json::to_string_pretty(&report) {
-            Ok(text) => println!("{text}"),
+            Ok(text) => text + "\n",
             Err(e) => return fail(EXIT_OUTPUT, e),
         },
-        Format::Text => print!("{}", report::validate::render(&report)),
-    }
-    ExitCode::SUCCESS
+        Format::Text => report::validate::render(&report),
+    };
+    emit(&text, ExitCode::SUCCESS)
 }
