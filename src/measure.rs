@@ -403,14 +403,12 @@ impl TrialRecord {
 /// and the low band's thumps ([`crate::detect::thump`]); one thump heard by both (onsets
 /// within 20 ms) is listed once, at the click search's onset.
 fn thumps(events: &AudioEvents) -> Vec<f64> {
-    let mut all: Vec<f64> = events.with_role(Role::Thump).map(|t| t.onset_s).collect();
-    let heard = all.clone();
-    all.extend(
-        events
-            .low_thumps_s
-            .iter()
-            .filter(|&&t| heard.iter().all(|h| (h - t).abs() > 0.02)),
-    );
+    let heard: Vec<f64> = events.with_role(Role::Thump).map(|t| t.onset_s).collect();
+    let low = events.low_thumps_s.iter().copied();
+    let mut all: Vec<f64> = low
+        .filter(|t| heard.iter().all(|h| (h - t).abs() > 0.02))
+        .chain(heard.iter().copied())
+        .collect();
     all.sort_by(f64::total_cmp);
     all
 }

@@ -102,8 +102,9 @@ pub fn detect_thumps(
         .chunks_exact(window)
         .map(|c| c.iter().sum::<f64>() / window as f64)
         .collect();
-    let median = median_of(energy.clone()).max(f64::MIN_POSITIVE);
-    let spread = 1.4826 * median_of(energy.iter().map(|e| (e - median).abs()).collect());
+    let median = super::median(&energy).max(f64::MIN_POSITIVE);
+    let mut deviations: Vec<f64> = energy.iter().map(|e| (e - median).abs()).collect();
+    let spread = super::MAD_TO_SIGMA * super::median_in_place(&mut deviations);
     let window_s = window as f64 / rate_hz;
     let shortest = (config.min_duration_ms * 1e-3 / window_s).ceil().max(1.0) as usize;
     let high = (median * 10f64.powf(config.min_rise_db / 10.0))
@@ -146,11 +147,6 @@ fn envelope_power(x: &[f64]) -> Vec<f64> {
     planner.plan_fft_inverse(n).process(&mut spectrum);
     let scale = 1.0 / (n as f64 * n as f64);
     spectrum.iter().map(|c| c.norm_sqr() * scale).collect()
-}
-
-fn median_of(mut values: Vec<f64>) -> f64 {
-    values.sort_by(f64::total_cmp);
-    values[values.len() / 2]
 }
 
 /// Runs of `energy` above `level`: (first index, one past the last).

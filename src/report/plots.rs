@@ -659,13 +659,19 @@ fn release_curve(record: &TrialRecord, from: f64, until: f64) -> Vec<(f64, f64)>
     let Some(fit) = record.release_fit.as_ref() else {
         return Vec::new();
     };
-    let (a, b) = (fit.from_s.max(from), fit.to_s.min(until));
+    sample_curve(fit.from_s.max(from), fit.to_s.min(until), 300, |t| {
+        fit.at(t)
+    })
+}
+
+/// `f` at `steps + 1` evenly spaced times from `a` to `b`; empty when `b <= a`.
+fn sample_curve(a: f64, b: f64, steps: usize, f: impl Fn(f64) -> f64) -> Vec<(f64, f64)> {
     if b <= a {
         return Vec::new();
     }
-    (0..=300)
-        .map(|k| a + (b - a) * k as f64 / 300.0)
-        .map(|t| (t, fit.at(t)))
+    (0..=steps)
+        .map(|k| a + (b - a) * k as f64 / steps as f64)
+        .map(|t| (t, f(t)))
         .collect()
 }
 
@@ -678,18 +684,10 @@ fn oscillation_curve(record: &TrialRecord, from: f64, until: f64) -> Vec<(f64, f
     let (Some(p), Some(m0)) = (o.model, o.model_t0_s) else {
         return Vec::new();
     };
-    let start = m0.max(from);
-    if until <= start {
-        return Vec::new();
-    }
-    (0..=600)
-        .map(|k| start + (until - start) * k as f64 / 600.0)
-        .map(|t| {
-            let u = t - m0;
-            let v = p[0] + (-p[3] * u).exp() * (p[1] * (p[4] * u).cos() + p[2] * (p[4] * u).sin());
-            (t, v)
-        })
-        .collect()
+    sample_curve(m0.max(from), until, 600, |t| {
+        let u = t - m0;
+        p[0] + (-p[3] * u).exp() * (p[1] * (p[4] * u).cos() + p[2] * (p[4] * u).sin())
+    })
 }
 
 fn oscillation_panel(
