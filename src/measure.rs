@@ -221,6 +221,11 @@ pub struct TrialRecord {
     /// without frames).
     #[serde(default)]
     pub loading_before_record: Option<bool>,
+    /// Where the loading becomes visible: the first time after the onset that the loading
+    /// measure, averaged over 16 frames, stands two noise SD from its held level (see
+    /// [`crate::detect::loading::departure_s`]). Video clock, seconds.
+    #[serde(default)]
+    pub loading_departure_s: Option<f64>,
     pub latch_release_s: Option<f64>,
     pub latch_release_sd_ms: Option<f64>,
     pub latch_release_video_s: Option<f64>,
@@ -328,6 +333,7 @@ impl TrialRecord {
             loading_onset_early_s: None,
             loading_onset_late_s: None,
             loading_before_record: None,
+            loading_departure_s: None,
             latch_release_s: None,
             latch_release_sd_ms: None,
             latch_release_video_s: None,
@@ -471,6 +477,7 @@ pub fn measure(
         record.loading_onset_uncertainty_ms = onset.map(|l| l.uncertainty_ms);
         record.loading_onset_early_s = onset.map(|l| l.early_s);
         record.loading_onset_late_s = onset.map(|l| l.late_s);
+        record.loading_departure_s = onset.and_then(|l| l.departure_s);
         if video.loading.is_none() {
             flags.push(Flag::NoLoading);
         }
@@ -636,6 +643,7 @@ mod tests {
                 f_statistic: 100.0,
                 before_record: false,
                 may_precede_record: false,
+                departure_s: None,
             }),
             oscillation: Some(from_ratio(50.0, 0.63, 5)),
             click_fits_frames: None,

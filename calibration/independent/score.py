@@ -395,15 +395,24 @@ def targets(ts, recs):
                     ok15 += 1
         S.add("long-tracked: frequency within 15 % (clear_cycles >= 2)", ok15 / n if n else None, n, ">= 80 %",
               n > 0 and ok15 / n >= 0.8, "%")
-        ok50 = n = 0
-        for t in ts:
-            if t.get("loading_onset_s") is not None and t.get("loading_leaves_held_s") is not None:
-                n += 1
-                f = get(recs[t["trial"]], "loading_onset_s")
-                if f is not None and abs(f - t["loading_leaves_held_s"]) <= 0.05:
-                    ok50 += 1
-        S.add("long-tracked: loading onset within 50 ms of leaving held level", ok50 / n if n else None, n,
-              ">= 80 %", n > 0 and ok50 / n >= 0.8, "%")
+        def near_leaving(field):
+            ok = n = 0
+            for t in ts:
+                if t.get("loading_onset_s") is not None and t.get("loading_leaves_held_s") is not None:
+                    n += 1
+                    f = get(recs[t["trial"]], field)
+                    if f is not None and abs(f - t["loading_leaves_held_s"]) <= 0.05:
+                        ok += 1
+            return (ok / n if n else None), n
+
+        share, n = near_leaving("loading_onset_s")
+        S.add("long-tracked: loading onset within 50 ms of leaving held level", share, n,
+              ">= 80 %", n > 0 and share >= 0.8, "%")
+        # latchtime also reports where the loading becomes visible (2 noise SD out), the
+        # reading this truth describes; the onset estimates where the drive began.
+        share, n = near_leaving("loading_departure_s")
+        S.add("  long-tracked: loading_departure_s within 50 ms of leaving held level (info)",
+              share, n, None, None, "%")
     return S
 
 

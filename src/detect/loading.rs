@@ -41,6 +41,8 @@ pub struct LoadingOnset {
     /// The 95 % interval reaches before the first frame: the loading may have begun before
     /// the record (true whenever `before_record` is).
     pub may_precede_record: bool,
+    /// Where the loading becomes visible: see [`departure_s`]. Video clock, seconds.
+    pub departure_s: Option<f64>,
 }
 
 /// Finds the loading onset in the frames `..end` of (t, y).
@@ -75,7 +77,80 @@ pub fn detect_loading(t: &[f64], y: &[f64], end: usize, period_s: f64) -> Option
         late_s: late + t0,
         drift_per_s: hinge.drift_per_s,
         f_statistic: hinge.f_statistic,
+        departure_s: None,
     })
+}
+
+/// Frames per block of [`departure_s`]: the mean of 16 frames has a quarter of the per-frame
+/// noise.
+const DEPARTURE_FRAMES: usize = 16;
+
+/// Per-frame noise standard deviations from the held level at which the loading is visible.
+/// Common practice for movement and muscle-activity onsets is a threshold of the baseline mean
+/// plus two or three baseline SD (reviewed by Hodges & Bui 1996, from memory).
+pub const DEPARTURE_SIGMA: f64 = 2.0;
+
+/// Where the loading measure visibly leaves its held level: where a fit that only moves away
+/// from the held level (isotonic regression, pool-adjacent-violators, on the means of blocks
+/// of [`DEPARTURE_FRAMES`] frames from `onset_s` to frame `end`) first stands
+/// [`DEPARTURE_SIGMA`] per-frame noise SD (`sigma`) out in the direction of the drift; linear
+/// between the centres of the fit's pooled blocks. The held level is the mean of the frames
+/// before the onset. A monotone fit pools the noise where a slow drift creeps towards the
+/// threshold, where the first window mean to cross it would be early by the time the drift
+/// takes to rise some noise SD of the mean. `None` when fewer than [`DEPARTURE_FRAMES`] frames
+/// precede the onset or the drift never stands that far out.
+pub fn departure_s(t: &[f64], y: &[f64], onset_s: f64, end: usize, sigma: f64) -> Option<f64> {
+    let w = DEPARTURE_FRAMES;
+    let m = end.min(y.len()).min(t.len());
+    let first = t[..m].partition_point(|&v| v < onset_s);
+    if first < w || m < first + 2 * w {
+        return None;
+    }
+    let held = y[..first].iter().sum::<f64>() / first as f64;
+    let blocks: Vec<(f64, f64)> = (first..m - w + 1)
+        .step_by(w)
+        .map(|k| {
+            let mean_t = t[k..k + w].iter().sum::<f64>() / w as f64;
+            (mean_t, y[k..k + w].iter().sum::<f64>() / w as f64 - held)
+        })
+        .collect();
+    let sign = blocks.last().map_or(0.0, |b| b.1.signum());
+    let pooled = pool_adjacent(blocks.iter().map(|b| sign * b.1));
+    let limit = DEPARTURE_SIGMA * sigma;
+    // Each pooled run: (value, first block, blocks); its centre is the mean of its blocks' times.
+    let centre = |(_, from, n): (f64, usize, usize)| {
+        blocks[from..from + n].iter().map(|b| b.0).sum::<f64>() / n as f64
+    };
+    let k = pooled.iter().position(|r| r.0 >= limit)?;
+    let (above, t_above) = (pooled[k].0, centre(pooled[k]));
+    let Some(&prev) = k.checked_sub(1).and_then(|j| pooled.get(j)) else {
+        return Some(blocks[0].0);
+    };
+    let f = (limit - prev.0) / (above - prev.0);
+    Some(centre(prev) + f * (t_above - centre(prev)))
+}
+
+/// Non-decreasing least-squares fit of equally weighted values (pool adjacent violators):
+/// runs of (value, first index, length).
+fn pool_adjacent(values: impl Iterator<Item = f64>) -> Vec<(f64, usize, usize)> {
+    let mut runs: Vec<(f64, usize, usize)> = Vec::new();
+    for (i, v) in values.enumerate() {
+        let mut run = (v, i, 1);
+        while let Some(&last) = runs.last() {
+            if last.0 <= run.0 {
+                break;
+            }
+            runs.pop();
+            let n = last.2 + run.2;
+            run = (
+                (last.0 * last.2 as f64 + run.0 * run.2 as f64) / n as f64,
+                last.1,
+                n,
+            );
+        }
+        runs.push(run);
+    }
+    runs
 }
 
 /// The hinge fit: onset and 95 % half-width in segment-relative seconds.
@@ -893,6 +968,58 @@ mod tests {
             }
         }
         best.1
+    }
+
+    /// A held level, then a drift that reaches two noise SD (1.0) `visible_s` after its onset
+    /// at 0.3 s: linear, or a cubic start (a drive ramping its speed up) that does.
+    fn drifting(seed: u64, cubic: bool, visible_s: f64) -> (Vec<f64>, Vec<f64>) {
+        let fps = 1000.0;
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+        let noise = Normal::new(0.0, 1.0).unwrap();
+        let t: Vec<f64> = (0..1200).map(|k| k as f64 / fps).collect();
+        let y = t
+            .iter()
+            .map(|&t| {
+                let h = ((t - 0.3) / visible_s).max(0.0);
+                -2.0 * if cubic { h.powi(3) } else { h } + noise.sample(&mut rng)
+            })
+            .collect();
+        (t, y)
+    }
+
+    #[test]
+    fn departure_is_where_the_drift_stands_two_noise_sd_out_linear_or_ramped() {
+        // The truth is 0.3 + visible_s. The time to cross from noise alone: the mean of 16
+        // frames has SD 0.25, over a slope of 2 / visible_s per s; medians over 21 seeds.
+        for (cubic, visible_s, tol_s) in [(false, 0.1, 0.008), (true, 0.2, 0.008)] {
+            let mut errors: Vec<f64> = (0..21)
+                .filter_map(|seed| {
+                    let (t, y) = drifting(seed, cubic, visible_s);
+                    departure_s(&t, &y, 0.3, t.len(), 1.0).map(|d| d - (0.3 + visible_s))
+                })
+                .collect();
+            assert_eq!(errors.len(), 21);
+            errors.sort_by(f64::total_cmp);
+            let median = errors[10];
+            assert!(median.abs() < tol_s, "cubic {cubic}: median {median}");
+        }
+    }
+
+    #[test]
+    fn pool_adjacent_violators_gives_the_non_decreasing_least_squares_fit() {
+        // Worked by hand: 1, 3, 2, 4 -> 1, 2.5, 2.5, 4; 5, 4, 3 -> 4, 4, 4.
+        let runs = pool_adjacent([1.0, 3.0, 2.0, 4.0].into_iter());
+        assert_eq!(runs, vec![(1.0, 0, 1), (2.5, 1, 2), (4.0, 3, 1)]);
+        let runs = pool_adjacent([5.0, 4.0, 3.0].into_iter());
+        assert_eq!(runs, vec![(4.0, 0, 3)]);
+    }
+
+    #[test]
+    fn a_flat_record_or_an_onset_in_the_first_frames_has_no_departure() {
+        let (t, y) = drifting(3, false, 100.0);
+        assert_eq!(departure_s(&t, &y, 0.3, t.len(), 1.0), None);
+        let (t, y) = drifting(3, false, 0.1);
+        assert_eq!(departure_s(&t, &y, 0.005, t.len(), 1.0), None);
     }
 
     fn centred(t: &[f64], y: &[f64]) -> (Vec<f64>, Vec<f64>) {

@@ -544,7 +544,22 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
                 .map_or(0, |(i, _)| i + 1)
         }
     };
-    let loading = loading::detect_loading(t, &series.loading, loading_end, clock.period_s);
+    let loading_step = series
+        .loading_step
+        .unwrap_or_else(|| trace::column_print_step(&series.loading));
+    let loading_sigma = trace::noise_sigma(&series.loading, loading_step);
+    let loading = loading::detect_loading(t, &series.loading, loading_end, clock.period_s).map(
+        |mut found| {
+            found.departure_s = loading::departure_s(
+                t,
+                &series.loading,
+                found.onset_s,
+                loading_end,
+                loading_sigma,
+            );
+            found
+        },
+    );
     // The oscillation starts at the data's own first extremum; its fitted model never moves
     // the motion peak.
     let oscillation = motion.as_ref().filter(|m| m.overshoot).and_then(|m| {

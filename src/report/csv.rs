@@ -68,7 +68,7 @@ fn count<T>(v: Option<&Vec<T>>) -> String {
 type CellFn = fn(&TrialRecord) -> String;
 
 /// The columns after the flags, with how each is read from a record.
-const MEASURE_COLUMNS: [(&str, CellFn); 34] = [
+const MEASURE_COLUMNS: [(&str, CellFn); 35] = [
     ("click_onset_s", |r| number(r.click_onset_s, CLOCK)),
     ("click_onset_sd_ms", |r| {
         number(r.click.as_ref().map(|c| c.onset_sd_ms), SD)
@@ -82,6 +82,9 @@ const MEASURE_COLUMNS: [(&str, CellFn); 34] = [
     }),
     ("loading_before_record", |r| {
         boolean(r.loading_before_record)
+    }),
+    ("loading_departure_s", |r| {
+        number(r.loading_departure_s, CLOCK)
     }),
     ("latch_release_s", |r| number(r.latch_release_s, CLOCK)),
     ("latch_release_sd_ms", |r| number(r.latch_release_sd_ms, SD)),

@@ -20,7 +20,7 @@ FLAGS = [
 ]
 MEASURES = [
     "click_onset_s", "click_onset_sd_ms", "clicks", "ticks", "thumps",
-    "loading_onset_s", "loading_onset_sd_ms", "loading_before_record",
+    "loading_onset_s", "loading_onset_sd_ms", "loading_before_record", "loading_departure_s",
     "latch_release_s", "latch_release_sd_ms", "latch_release_video_s",
     "latch_release_video_sd_ms", "motion_peak_s", "motion_peak_sd_ms", "fast_phase_end_s",
     "fast_phase_end_sd_ms", "loading_ms", "loading_sd_ms", "release_ms", "release_sd_ms",
