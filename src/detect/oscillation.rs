@@ -100,6 +100,31 @@ fn half_cycle_extrema(
     extrema
 }
 
+/// The swings between consecutive extrema (and the extrema's times) that stand clear of the
+/// noise and keep shrinking at a steady pace, from the first extremum on.
+fn clean_swings(extrema: &[(f64, f64)], noise_sigma: f64) -> (Vec<f64>, Vec<f64>) {
+    let mut swings: Vec<f64> = Vec::new();
+    let Some(first) = extrema.first() else {
+        return (swings, Vec::new());
+    };
+    let mut times = vec![first.0];
+    for k in 1..extrema.len() {
+        let d = (extrema[k].1 - extrema[k - 1].1).abs();
+        let half = extrema[k].0 - extrema[k - 1].0;
+        let first_half = times.get(1).map(|t1| t1 - times[0]);
+        let steady = first_half.is_none_or(|h| half > 0.5 * h && half < 1.5 * h);
+        let shrinking = swings.last().is_none_or(|last| d <= 1.2 * last);
+        let clear =
+            d >= CLEAR_SWING_SIGMA * noise_sigma && swings.first().is_none_or(|d0| d >= 0.03 * d0);
+        if !(steady && shrinking && clear) {
+            break;
+        }
+        swings.push(d);
+        times.push(extrema[k].0);
+    }
+    (swings, times)
+}
+
 /// Builds the oscillation measures from a per-cycle amplitude ratio and a frequency.
 pub fn from_ratio(frequency_hz: f64, amplitude_ratio: f64, extrema_used: usize) -> Oscillation {
     let log_decrement = -amplitude_ratio.ln();
@@ -132,24 +157,23 @@ pub fn detect_oscillation(
     noise_sigma: f64,
     period_s: f64,
 ) -> Option<(Oscillation, Option<(f64, f64)>)> {
-    let extrema = half_cycle_extrema(t, y, peak_index, peak, direction, noise_sigma);
-    // Keep the swings that stand clear of the noise and keep shrinking at a steady pace.
-    let mut swings: Vec<f64> = Vec::new();
-    let mut times = vec![extrema[0].0];
-    for k in 1..extrema.len() {
-        let d = (extrema[k].1 - extrema[k - 1].1).abs();
-        let half = extrema[k].0 - extrema[k - 1].0;
-        let first_half = times.get(1).map(|t1| t1 - times[0]);
-        let steady = first_half.is_none_or(|h| half > 0.5 * h && half < 1.5 * h);
-        let shrinking = swings.last().is_none_or(|last| d <= 1.2 * last);
-        let clear =
-            d >= CLEAR_SWING_SIGMA * noise_sigma && swings.first().is_none_or(|d0| d >= 0.03 * d0);
-        if !(steady && shrinking && clear) {
-            break;
-        }
-        swings.push(d);
-        times.push(extrema[k].0);
-    }
+    let all = half_cycle_extrema(t, y, peak_index, peak, direction, noise_sigma);
+    // A part that hits a hard stop turns back in a cusp, part-way through a cycle of the
+    // ringing that follows: when the cycles from the peak are not steady, the ringing is
+    // measured from the first extremum after it (the peak itself never moves).
+    let from_peak = clean_swings(&all, noise_sigma);
+    let (extrema, (swings, times), start_index, start) =
+        match (from_peak.0.len() < 4, all.get(1)) {
+            (true, Some(&next)) => (
+                &all[1..],
+                clean_swings(&all[1..], noise_sigma),
+                t.partition_point(|v| *v < next.0).min(t.len().saturating_sub(1)),
+                next,
+            ),
+            _ => (&all[..], from_peak, peak_index, peak),
+        };
+    let after_cusp = start_index != peak_index;
+    let (peak_index, peak) = (start_index, start);
     // Two clean cycles: four swings after the peak.
     if swings.len() < 4 {
         return None;
@@ -207,7 +231,7 @@ pub fn detect_oscillation(
         oscillation.model = Some(p);
         oscillation.model_t0_s = Some(peak.0);
     }
-    Some((oscillation, first_extremum_s))
+    Some((oscillation, first_extremum_s.filter(|_| !after_cusp)))
 }
 
 /// The model c + e^{-s u}(a cos w u + b sin w u) at u, and its gradient in [c, a, b, s, w].
@@ -409,6 +433,27 @@ mod tests {
             o.damping_ratio
         );
         assert!((o.frequency_hz - 100.0).abs() < 0.5, "{}", o.frequency_hz);
+    }
+
+    #[test]
+    fn ringing_after_a_hit_on_a_hard_stop_is_measured_from_the_first_rebound() {
+        // A part that hits a stop 0.3 above its rest level and leaves it at speed rings freely
+        // from there: y0 cos(w u) + (v0 + s y0) / w sin(w u), decaying by 0.5 per cycle. The
+        // first swing takes well under half a period, so the cycles from the peak are not steady.
+        let (fps, f_hz, ratio) = (10_000.0, 150.0, 0.5f64);
+        let w = 2.0 * std::f64::consts::PI * f_hz;
+        let s = -ratio.ln() * f_hz;
+        let (y0, v0) = (0.3, -3.0 * w * 0.3);
+        let t: Vec<f64> = (0..1000).map(|k| k as f64 / fps).collect();
+        let y: Vec<f64> = t
+            .iter()
+            .map(|&u| (-s * u).exp() * (y0 * (w * u).cos() + (v0 + s * y0) / w * (w * u).sin()))
+            .collect();
+        let (o, first) = detect_oscillation(&t, &y, 0, (0.0, y0), 1.0, 1e-3, 1.0 / fps).unwrap();
+        assert!((o.frequency_hz / f_hz - 1.0).abs() < 0.01, "{}", o.frequency_hz);
+        assert!((o.amplitude_ratio - ratio).abs() < 0.01, "{}", o.amplitude_ratio);
+        // The model starts after the peak, so it gives no estimate of the peak.
+        assert_eq!(first, None);
     }
 
     #[test]
