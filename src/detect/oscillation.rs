@@ -162,16 +162,16 @@ pub fn detect_oscillation(
     // ringing that follows: when the cycles from the peak are not steady, the ringing is
     // measured from the first extremum after it (the peak itself never moves).
     let from_peak = clean_swings(&all, noise_sigma);
-    let (extrema, (swings, times), start_index, start) =
-        match (from_peak.0.len() < 4, all.get(1)) {
-            (true, Some(&next)) => (
-                &all[1..],
-                clean_swings(&all[1..], noise_sigma),
-                t.partition_point(|v| *v < next.0).min(t.len().saturating_sub(1)),
-                next,
-            ),
-            _ => (&all[..], from_peak, peak_index, peak),
-        };
+    let (extrema, (swings, times), start_index, start) = match (from_peak.0.len() < 4, all.get(1)) {
+        (true, Some(&next)) => (
+            &all[1..],
+            clean_swings(&all[1..], noise_sigma),
+            t.partition_point(|v| *v < next.0)
+                .min(t.len().saturating_sub(1)),
+            next,
+        ),
+        _ => (&all[..], from_peak, peak_index, peak),
+    };
     let after_cusp = start_index != peak_index;
     let (peak_index, peak) = (start_index, start);
     // Two clean cycles: four swings after the peak.
@@ -450,8 +450,16 @@ mod tests {
             .map(|&u| (-s * u).exp() * (y0 * (w * u).cos() + (v0 + s * y0) / w * (w * u).sin()))
             .collect();
         let (o, first) = detect_oscillation(&t, &y, 0, (0.0, y0), 1.0, 1e-3, 1.0 / fps).unwrap();
-        assert!((o.frequency_hz / f_hz - 1.0).abs() < 0.01, "{}", o.frequency_hz);
-        assert!((o.amplitude_ratio - ratio).abs() < 0.01, "{}", o.amplitude_ratio);
+        assert!(
+            (o.frequency_hz / f_hz - 1.0).abs() < 0.01,
+            "{}",
+            o.frequency_hz
+        );
+        assert!(
+            (o.amplitude_ratio - ratio).abs() < 0.01,
+            "{}",
+            o.amplitude_ratio
+        );
         // The model starts after the peak, so it gives no estimate of the peak.
         assert_eq!(first, None);
     }
