@@ -475,6 +475,21 @@ mod tests {
     }
 
     #[test]
+    fn a_second_click_1_ms_into_the_ringing_is_a_double_click() {
+        // 3 dB under the first, 1 ms into a ringing whose 0.5 ms energy has fallen by only
+        // 3 dB there and whose two resonances beat: the energy test cannot tell it from the
+        // tail, the linear prediction of the ringing ([`super::super::predict`]) can.
+        for seed in SEEDS {
+            let mut signal = noise_signal(FS, 0.5, NOISE, seed);
+            add_click(&mut signal, 0.25, amp(35.0), &RINGING);
+            add_click(&mut signal, 0.251, amp(32.0), &SHORT);
+            let report = detect(&signal, Some(0.2502));
+            assert_main_at(&report, 0.25, seed);
+            assert_one_later_at(&report, 0.251, seed);
+        }
+    }
+
+    #[test]
     fn a_louder_second_click_leaves_the_first_as_main() {
         // The second click is 6 dB louder, 3 ms after the first (a short one) and heard with
         // no video to place either: the main click is the earliest of the group.
