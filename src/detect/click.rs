@@ -19,7 +19,8 @@
 //!    each transient a second test splits it again where the full-rate high-passed signal
 //!    shows a new excitation that linear prediction of the ringing before it cannot foresee
 //!    ([`predict`], Makhoul 1975): a second click 0.5-3 ms into a loud ringing barely lifts
-//!    the energy, but the innovation jumps, while beating resonances stay predictable.
+//!    the energy, but the innovation jumps, while beating resonances stay predictable. The
+//!    same test, at a lower level, must confirm a split the energy test made there.
 //! 4. Onset: the AIC picker of Maeda (1985), AIC(k) = k ln var(x[..k]) + (N-k-1) ln var(x[k..]),
 //!    minimised on a short window ending just after the first crossing. It needs no threshold
 //!    of its own and is exact to the sample on a clean step in variance. It runs on the same
@@ -948,6 +949,7 @@ fn split_by_innovation(
     };
     let lead = (0.1e-3 * fs).round() as usize;
     let reach = (INNOVATION_REACH_S * fs) as usize;
+    let pieces = join_predicted(ctx, bw, x, b_full, &pieces, predict_levels);
     let mut out = Vec::with_capacity(pieces.len());
     for piece in pieces {
         let last_full = ((piece.last + 1) * d).min(x.len());
@@ -980,6 +982,60 @@ fn split_by_innovation(
             current = (right, Some(innovation));
         }
         out.push(current);
+    }
+    out
+}
+
+/// Factor by which the innovation must exceed the training residual and the noise for a
+/// split the energy test made inside another transient's first 15 ms to stand: lower than
+/// [`INNOVATION_RATIO`], since the energy already stood out there.
+const CONFIRM_RATIO: f64 = 4.0;
+
+/// Joins each piece that the energy test split off within [`INNOVATION_REACH_S`] of the start
+/// of the piece before it back to that piece where linear prediction of the ringing finds no
+/// new excitation from that piece's start to two windows past the split ([`predict`]): two
+/// resonances of one click that beat lift the energy above the held tail, but stay
+/// predictable. Splits in clipped pieces, and splits too close to test, stand.
+fn join_predicted(
+    ctx: &ScanContext,
+    bw: &BandWindow,
+    x: &[f64],
+    b_full: usize,
+    pieces: &[tail::Piece],
+    levels: predict::InnovationLevels,
+) -> Vec<tail::Piece> {
+    let fs = ctx.signal.sample_rate_hz;
+    let d = bw.d;
+    let clip = 0.999 * ctx.signal.clip_level;
+    let lead = (0.1e-3 * fs).round() as usize;
+    let reach = (INNOVATION_REACH_S * fs) as usize;
+    let confirm = predict::InnovationLevels {
+        ratio: CONFIRM_RATIO,
+        noise_ratio: CONFIRM_RATIO,
+        ..levels
+    };
+    let mut out: Vec<tail::Piece> = Vec::with_capacity(pieces.len());
+    for &piece in pieces {
+        let Some(prev) = out.last_mut() else {
+            out.push(piece);
+            continue;
+        };
+        let (a, split) = (prev.first * d, piece.first * d);
+        let from = a + b_full + lead;
+        let to = (split + 3 * b_full).min(((piece.last + 1) * d).min(x.len()));
+        let testable = piece.tail_energy.is_some()
+            && split < a + reach
+            && to >= from + predict::shortest_search(confirm)
+            && x[a..to].iter().filter(|v| v.abs() >= clip).count() < 2;
+        let new_click = !testable || {
+            let hp = HighPassed::new(ctx, bw, x, a, to);
+            predict::find_innovation(hp.y(), hp.at(from), hp.at(to), confirm).is_some()
+        };
+        if new_click {
+            out.push(piece);
+        } else {
+            prev.last = piece.last;
+        }
     }
     out
 }

@@ -36,6 +36,14 @@ pub struct InnovationLevels {
     pub noise_ratio: f64,
 }
 
+/// Samples of training before the first stretch tested: the lowest order, four rows each.
+const FIRST_TRAINING: usize = 5 * MIN_ORDER;
+
+/// Shortest `from..to` in which [`find_innovation`] tests a stretch at all.
+pub fn shortest_search(levels: InnovationLevels) -> usize {
+    FIRST_TRAINING + levels.test_len.max(4)
+}
+
 /// A new excitation found inside a tail.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Innovation {
@@ -58,7 +66,7 @@ pub fn find_innovation(
     let m = levels.test_len.max(4);
     let step = (m / 2).max(1);
     let to = to.min(y.len());
-    let mut t = from + 4 * MIN_ORDER + MIN_ORDER;
+    let mut t = from + FIRST_TRAINING;
     while t + m <= to {
         let start = from.max(t.saturating_sub(levels.train_max));
         if let Some(model) = fit(y, start, t) {
