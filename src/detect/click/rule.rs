@@ -467,6 +467,19 @@ mod tests {
     }
 
     #[test]
+    fn a_second_click_inside_the_ringing_is_a_double_click_and_the_first_is_main() {
+        // An equal second click 2 ms into a ringing whose energy has fallen by 6 dB there.
+        for seed in SEEDS {
+            let mut signal = noise_signal(FS, 0.5, NOISE, seed);
+            add_click(&mut signal, 0.25, amp(35.0), &RINGING);
+            add_click(&mut signal, 0.252, amp(35.0), &SHORT);
+            let report = detect(&signal, Some(0.2503));
+            assert_main_at(&report, 0.25, seed);
+            assert_one_later_at(&report, 0.252, seed);
+        }
+    }
+
+    #[test]
     fn a_second_click_1_ms_into_the_ringing_is_a_double_click() {
         // 3 dB under the first, 1 ms into a ringing whose 0.5 ms energy has fallen by only
         // 3 dB there and whose two resonances beat: the energy test cannot tell it from the
