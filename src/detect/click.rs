@@ -15,7 +15,12 @@
 //!    held over a few windows and decayed at half its recent rate), so a click that rings for
 //!    milliseconds stays one transient and a second click inside its ringing, louder or not,
 //!    is one of its own. One pass gives the whole list: the whole recording, the stretches
-//!    the video points to, and the fallback at the core chance.
+//!    the video points to, and the fallback at the core chance. Within the first 15 ms of
+//!    each transient a second test splits it again where the full-rate high-passed signal
+//!    shows a new excitation that linear prediction of the ringing before it cannot foresee
+//!    ([`predict`], Makhoul 1975): a second click 0.5-3 ms into a loud ringing barely lifts
+//!    the energy, but the innovation jumps, while beating resonances stay predictable. The
+//!    same test, at a lower level, must confirm a split the energy test made there.
 //! 4. Onset: the AIC picker of Maeda (1985), AIC(k) = k ln var(x[..k]) + (N-k-1) ln var(x[k..]),
 //!    minimised on a short window ending just after the first crossing. It needs no threshold
 //!    of its own and is exact to the sample on a clean step in variance. It runs on the same
@@ -44,6 +49,7 @@ use super::filter::{
 use super::MAD_TO_SIGMA;
 use crate::signal::AudioSignal;
 
+pub mod predict;
 pub mod rule;
 pub mod tail;
 
@@ -888,9 +894,11 @@ fn scan_window(
     for (first, last) in crossing_spans(&energy, &levels, guard, merge) {
         let pieces = tail::split_span(&energy, first, last, split, |s| levels.at(s));
         let pieces = tail::absorb_weak_leads(pieces, merge, levels.high);
+        let pieces = split_by_innovation(ctx, &bw, x, &energy, &levels, pieces);
         let mut background_rms = None;
-        for piece in pieces {
-            let at = PieceAt::new(&piece, &bw, &levels, x.len());
+        for (piece, innovation) in pieces {
+            let mut at = PieceAt::new(&piece, &bw, &levels, x.len());
+            at.innovation = innovation;
             let t = measure_piece(ctx, &bw, w0, x, &at, previous_end, background_rms, scratch);
             background_rms = background_rms.or(Some(t.noise_rms));
             previous_end = at.last + 1;
@@ -899,6 +907,256 @@ fn scan_window(
     }
     scratch.energy = energy;
     transients
+}
+
+/// Training stretch of the prediction model, seconds: long enough to fit a model of every
+/// resonance, short enough to follow a tail whose fast modes have died.
+const INNOVATION_TRAIN_S: f64 = 1.5e-3;
+/// Length of the stretch whose innovation is tested, seconds (at least 16 samples).
+const INNOVATION_TEST_S: f64 = 0.1e-3;
+/// How far into a transient a second click is searched for by prediction, seconds: further
+/// on the tail has decayed and the energy test against it ([`tail`]) sees a new click.
+const INNOVATION_REACH_S: f64 = 15e-3;
+/// Factor by which the innovation must exceed the training residual, and the noise through
+/// the prediction-error filter, to start a new transient ([`predict`]).
+const INNOVATION_RATIO: f64 = 8.0;
+/// Most new transients found by prediction inside one piece.
+const INNOVATION_MAX_SPLITS: usize = 3;
+
+/// Splits each piece where its full-rate high-passed signal shows a new excitation that the
+/// free response of the ringing before it cannot predict ([`predict`]): a second click
+/// inside a ringing tail that the energy test cannot tell from the tail. Pieces with
+/// clipped samples are left whole (clipping is not a linear response, so the model cannot
+/// predict it). Each piece comes with the innovation that opened it, if any.
+fn split_by_innovation(
+    ctx: &ScanContext,
+    bw: &BandWindow,
+    x: &[f64],
+    energy: &[f64],
+    levels: &Levels,
+    pieces: Vec<tail::Piece>,
+) -> Vec<(tail::Piece, Option<predict::Innovation>)> {
+    let fs = ctx.signal.sample_rate_hz;
+    let d = bw.d;
+    let b_full = levels.b * d;
+    let clip = 0.999 * ctx.signal.clip_level;
+    let predict_levels = predict::InnovationLevels {
+        train_max: (INNOVATION_TRAIN_S * fs) as usize,
+        test_len: ((INNOVATION_TEST_S * fs).round() as usize).max(16),
+        ratio: INNOVATION_RATIO,
+        noise_var: ctx.noise_sigma * ctx.noise_sigma,
+        noise_ratio: INNOVATION_RATIO,
+        own_len: b_full,
+    };
+    let lead = (0.1e-3 * fs).round() as usize;
+    let reach = (INNOVATION_REACH_S * fs) as usize;
+    let pieces = join_predicted(ctx, bw, x, b_full, &pieces, predict_levels);
+    let mut out = Vec::with_capacity(pieces.len());
+    for piece in pieces {
+        let last_full = ((piece.last + 1) * d).min(x.len());
+        let clipped = x[piece.first * d..last_full]
+            .iter()
+            .filter(|v| v.abs() >= clip)
+            .count();
+        if clipped >= 2 {
+            out.push((piece, None));
+            continue;
+        }
+        let hp = HighPassed::new(ctx, bw, x, piece.first * d, last_full);
+        let mut current = (piece, None);
+        for _ in 0..INNOVATION_MAX_SPLITS {
+            let from = current.0.first * d + b_full + lead;
+            let to = last_full.min(from + reach);
+            let found = (to > from)
+                .then(|| predict::find_innovation(hp.y(), hp.at(from), hp.at(to), predict_levels))
+                .flatten();
+            let Some(mut innovation) = found else { break };
+            innovation.onset += hp.start;
+            innovation.interval = (
+                innovation.interval.0 + hp.start,
+                innovation.interval.1 + hp.start,
+            );
+            let Some((left, right)) = split_piece(current.0, innovation, energy, levels, d) else {
+                break;
+            };
+            out.push((left, current.1));
+            current = (right, Some(innovation));
+        }
+        out.push(current);
+    }
+    out
+}
+
+/// Factor by which the innovation must exceed the training residual and the noise for a
+/// split the energy test made inside another transient's first 15 ms to stand: lower than
+/// [`INNOVATION_RATIO`], since the energy already stood out there.
+const CONFIRM_RATIO: f64 = 4.0;
+
+/// Joins each piece that the energy test split off within [`INNOVATION_REACH_S`] of the start
+/// of the piece before it back to that piece where linear prediction of the ringing finds no
+/// new excitation from that piece's start to two windows past the split ([`predict`]): two
+/// resonances of one click that beat lift the energy above the held tail, but stay
+/// predictable. Splits in clipped pieces, and splits too close to test, stand.
+fn join_predicted(
+    ctx: &ScanContext,
+    bw: &BandWindow,
+    x: &[f64],
+    b_full: usize,
+    pieces: &[tail::Piece],
+    levels: predict::InnovationLevels,
+) -> Vec<tail::Piece> {
+    let fs = ctx.signal.sample_rate_hz;
+    let d = bw.d;
+    let clip = 0.999 * ctx.signal.clip_level;
+    let lead = (0.1e-3 * fs).round() as usize;
+    let reach = (INNOVATION_REACH_S * fs) as usize;
+    let confirm = predict::InnovationLevels {
+        ratio: CONFIRM_RATIO,
+        noise_ratio: CONFIRM_RATIO,
+        ..levels
+    };
+    let mut out: Vec<tail::Piece> = Vec::with_capacity(pieces.len());
+    for &piece in pieces {
+        let Some(prev) = out.last_mut() else {
+            out.push(piece);
+            continue;
+        };
+        let (a, split) = (prev.first * d, piece.first * d);
+        let from = a + b_full + lead;
+        let to = (split + 3 * b_full).min(((piece.last + 1) * d).min(x.len()));
+        let testable = piece.tail_energy.is_some()
+            && split < a + reach
+            && to >= from + predict::shortest_search(confirm)
+            && x[a..to].iter().filter(|v| v.abs() >= clip).count() < 2;
+        let new_click = !testable || {
+            let hp = HighPassed::new(ctx, bw, x, a, to);
+            predict::find_innovation(hp.y(), hp.at(from), hp.at(to), confirm).is_some()
+        };
+        if new_click {
+            out.push(piece);
+        } else {
+            prev.last = piece.last;
+        }
+    }
+    out
+}
+
+/// The causal high-passed signal over part of a window, at the full rate.
+struct HighPassed<'a> {
+    /// Window index of the first sample of `data`.
+    start: usize,
+    data: std::borrow::Cow<'a, [f64]>,
+}
+
+impl<'a> HighPassed<'a> {
+    fn new(ctx: &ScanContext, bw: &'a BandWindow, x: &[f64], a: usize, b: usize) -> HighPassed<'a> {
+        match &bw.full_hp {
+            Some(hp) => HighPassed {
+                start: 0,
+                data: std::borrow::Cow::Borrowed(hp),
+            },
+            None => {
+                // Filtered from 5 ms earlier, for the filter to settle.
+                let start = a.saturating_sub((5e-3 * ctx.signal.sample_rate_hz) as usize);
+                HighPassed {
+                    start,
+                    data: std::borrow::Cow::Owned(filter_causal(ctx.sections, &x[start..b])),
+                }
+            }
+        }
+    }
+
+    fn y(&self) -> &[f64] {
+        &self.data
+    }
+
+    /// Index into `y` of window sample `i`.
+    fn at(&self, i: usize) -> usize {
+        i.saturating_sub(self.start).min(self.data.len())
+    }
+}
+
+/// Splits `piece` (on the clock of the search signal, decimated by `d`) at a new excitation:
+/// the left keeps the samples before the onset, the right starts there, its peak the largest
+/// energy of its first two windows, its tail from [`own_tail`]. `None` when either part would
+/// be empty.
+fn split_piece(
+    piece: tail::Piece,
+    innovation: predict::Innovation,
+    energy: &[f64],
+    levels: &Levels,
+    d: usize,
+) -> Option<(tail::Piece, tail::Piece)> {
+    let j = innovation.onset / d;
+    let b = levels.b;
+    if j <= piece.first || j + b > piece.last {
+        return None;
+    }
+    let left = tail::Piece {
+        last: j - 1,
+        peak: piece.peak.min(j - 1),
+        top_energy: energy[piece.peak.min(j - 1)],
+        decay_per_sample: None,
+        ..piece
+    };
+    let (peak, top_energy) = (j + b - 1..=(j + 3 * b).min(piece.last))
+        .map(|i| (i, energy[i]))
+        .fold((j + b - 1, f64::NEG_INFINITY), |m, v| {
+            if v.1 > m.1 {
+                v
+            } else {
+                m
+            }
+        });
+    let right = tail::Piece {
+        first: j,
+        last: piece.last,
+        peak,
+        top_energy,
+        tail_energy: Some(own_tail(
+            &left, innovation, energy, j, peak, top_energy, levels,
+        )),
+        decay_per_sample: piece.decay_per_sample,
+    };
+    Some((left, right))
+}
+
+/// The tail under the energy `top` at `peak` of a transient that opens at `j` inside `left`:
+/// the lesser of two estimates that each tend to read high. One is the left's energy just
+/// before the onset decayed there ([`tail_before`]), which reads high where the ringing
+/// beats or decays slowly; the other is what the new excitation's own power over a window
+/// leaves of `top` ([`predict::Innovation::own_power`]), which reads high where the
+/// prediction-error filter's gain at the new click's frequencies is under its mean (by 2-7
+/// times on the 1 ms test in `rule.rs`).
+fn own_tail(
+    left: &tail::Piece,
+    innovation: predict::Innovation,
+    energy: &[f64],
+    j: usize,
+    peak: usize,
+    top: f64,
+    levels: &Levels,
+) -> f64 {
+    let noise = levels.noise_energy();
+    let from_power = (top - innovation.own_power * levels.b as f64).max(noise);
+    tail_before(left, energy, j, peak, noise).min(from_power)
+}
+
+/// The tail of `left` at `peak` for a transient that opens at `j`, once a test other than
+/// the energy's has found it there: the energy of the window just before `j`, decayed to
+/// `peak` at half the average rate from the left's peak (a sum of resonances decays ever
+/// more slowly), noise mean included. Not held over the largest of several windows, as the
+/// energy test holds it: the split is made, and its own part is measured, not guarded.
+fn tail_before(left: &tail::Piece, energy: &[f64], j: usize, peak: usize, noise: f64) -> f64 {
+    let before = (energy[j - 1] - noise).max(0.0);
+    let top = (left.top_energy - noise).max(before);
+    let span = (j - 1).saturating_sub(left.peak);
+    let rate = if span > 0 && before > 0.0 {
+        (top / before).ln() / span as f64
+    } else {
+        0.0
+    };
+    noise + before * (-0.5 * rate * (peak + 1 - j) as f64).exp()
 }
 
 /// A piece of a span on the full-rate clock of the window, with what measuring it needs.
@@ -920,6 +1178,9 @@ struct PieceAt {
     weak: bool,
     /// Amplitude decay time of the tail, ms.
     decay_ms: Option<f64>,
+    /// The new excitation that opened the piece inside another's ringing, found by
+    /// prediction: its onset replaces the AIC pick on the signal.
+    innovation: Option<predict::Innovation>,
 }
 
 impl PieceAt {
@@ -957,6 +1218,7 @@ impl PieceAt {
             score_sigma: levels.score(own),
             weak: own <= levels.high,
             decay_ms: piece.decay_per_sample.map(|r| 2.0 / (r * bw.fs_z) * 1e3),
+            innovation: None,
         }
     }
 }
@@ -992,7 +1254,14 @@ fn measure_piece(
     let (peak_idx, peak_filtered) = (first..=last)
         .map(|i| (i, y(i).abs()))
         .fold((first, 0.0), |acc, v| if v.1 > acc.1 { v } else { acc });
-    let pick = pick_onset(ctx, bw, x, at, peak_idx, previous_end);
+    let pick = match at.innovation {
+        Some(i) => Pick {
+            onset: i.onset.min(last),
+            interval: Some(i.interval),
+            noise_rms: ctx.noise_sigma,
+        },
+        None => pick_onset(ctx, bw, x, at, peak_idx, previous_end),
+    };
     let onset = pick.onset;
     let tenth = 0.1 * peak_filtered;
     let tail = (onset.max(za)..=last)
