@@ -431,7 +431,7 @@ fn audio_marks(record: &TrialRecord) -> Vec<Mark> {
 }
 
 /// The video events with their 95 % bands (video clock, s): loading onset (its interval may be
-/// lopsided), release, the frames' own release when the click refined it, motion peak, end of
+/// lopsided), where the loading becomes visible, release, the frames' own release when the click refined it, motion peak, end of
 /// the fast phase, and the click mapped onto the video clock when the clocks agree.
 fn video_marks(record: &TrialRecord, offset_s: f64) -> Vec<Mark> {
     let ms = |v: Option<f64>| v.map(|v| v * 1e-3);
@@ -447,6 +447,9 @@ fn video_marks(record: &TrialRecord, offset_s: f64) -> Vec<Mark> {
             (m.early, m.late) = (a, b);
         }
         marks.push(m);
+    }
+    if let Some(d) = record.loading_departure_s {
+        marks.push(Mark::new(d, None, GREEN, "loading visible").dashed());
     }
     let release = record.latch_release_s;
     if let Some(r) = release {
