@@ -8,7 +8,8 @@
 //! the picture changes come; the second tracks points in the part of the picture that changes
 //! most. The video is decoded once when its decoded frames fit [`replay::BUDGET_BYTES`]: the
 //! second pass replays the frames the first kept ([`replay`]) and decodes only those after
-//! them. Memory grows with the number of frames only by the block means and that budget.
+//! them (a video four times longer than the budget keeps none). Memory grows with the number
+//! of frames only by the block means and that budget.
 //!
 //! Which measures feed the detectors (the rule, [`choose`]): the columns the rig names
 //! (`frames_column`, `loading_column`); else, for the motion (release, peak, oscillation), the
@@ -192,7 +193,7 @@ pub fn measure_video_within(
     budget_bytes: usize,
 ) -> Result<Measures> {
     let mut source = open()?;
-    let mut replay = Replay::new(budget_bytes);
+    let mut replay = Replay::new(budget_bytes, source.info().frames_listed);
     let pass = first_pass(source.as_mut(), cfg, &mut replay)?;
     drop(source);
     let (Some(grid), Some(first)) = (pass.grid, pass.first) else {
@@ -795,8 +796,8 @@ mod tests {
             let frame_bytes = frames[0].luma.len() * if whole { 1 } else { 4 };
             let mut opened = Vec::new();
             let mut results = Vec::new();
-            // None kept, the first 37 kept, all kept.
-            for budget in [0, 37 * frame_bytes, usize::MAX] {
+            // None kept, the first 57 of 200 kept, all kept.
+            for budget in [0, 57 * frame_bytes, usize::MAX] {
                 let mut opens = 0;
                 let m = measure_video_within(
                     || {

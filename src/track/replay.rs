@@ -10,10 +10,17 @@
 //! only the frames after them. Replayed values are bit for bit the decoder's, so both ways give
 //! the same measures.
 
-/// Bytes of decoded frames kept for the second pass, per worker. 96 MiB keeps 384 frames of
-/// 512 x 512 at 8 bits (0.19 s at 2000 fps), and leaves a worker's peak (about 30 MB without
-/// it) under the 200 MB target of issue 17.
-pub const BUDGET_BYTES: usize = 96 << 20;
+/// Bytes of decoded frames kept for the second pass, per worker. 128 MiB keeps 512 frames of
+/// 512 x 512 at 8 bits (0.26 s at 2000 fps); with [`MIN_SHARE`], only videos of up to 2048 such
+/// frames keep any, whose other memory is about 10 MB: a worker's peak stays under the 200 MB
+/// of issue 17 (calibration/README.md, video throughput and memory).
+pub const BUDGET_BYTES: usize = 128 << 20;
+
+/// Frames are kept only when at least this share of the video's listed frames fits the budget
+/// (at a byte a pixel): kept frames cost the whole budget's memory however long the video,
+/// and save only their share of the second decoding. A quarter, a judgement: a 40,000-frame
+/// video would hold 128 MiB to save 1.3 % of its decoding.
+pub const MIN_SHARE: f64 = 0.25;
 
 /// One frame's luma, in the narrowest exact type.
 #[derive(Debug, Clone, PartialEq)]
@@ -100,16 +107,20 @@ pub struct Replay {
     pub frames: Vec<Kept>,
     bytes: usize,
     budget: usize,
+    /// Frames the source lists.
+    listed: u64,
     /// Whether every frame read so far was kept.
     pub whole: bool,
 }
 
 impl Replay {
-    pub fn new(budget_bytes: usize) -> Self {
+    /// Keeps up to `budget_bytes` of a video whose source lists `listed` frames.
+    pub fn new(budget_bytes: usize, listed: u64) -> Self {
         Replay {
             frames: Vec::new(),
             bytes: 0,
             budget: budget_bytes,
+            listed,
             whole: true,
         }
     }
@@ -117,6 +128,11 @@ impl Replay {
     /// Keeps a frame if every frame before it was kept and it fits the budget.
     pub fn offer(&mut self, index: i64, luma: &[f32]) {
         if !self.whole {
+            return;
+        }
+        let listed_bytes = self.listed as f64 * luma.len() as f64;
+        if self.frames.is_empty() && (self.budget as f64) < MIN_SHARE * listed_bytes {
+            self.whole = false;
             return;
         }
         // The narrowest form is at least a byte a pixel: skip the copy when even that won't fit.
@@ -163,12 +179,22 @@ mod tests {
 
     #[test]
     fn frames_past_the_budget_are_left_out_and_later_ones_too() {
-        let mut r = Replay::new(10);
+        let mut r = Replay::new(10, 4);
         r.offer(0, &[1.0; 4]);
         r.offer(1, &[1.0; 4]);
         r.offer(2, &[1.0; 4]);
         r.offer(3, &[1.0; 1]);
         assert_eq!(r.frames.len(), 2);
         assert!(!r.whole);
+    }
+
+    #[test]
+    fn nothing_is_kept_when_less_than_a_quarter_of_the_video_would_fit() {
+        let mut r = Replay::new(8, 9);
+        r.offer(0, &[1.0; 4]);
+        assert!(r.frames.is_empty() && !r.whole);
+        let mut r = Replay::new(9, 9);
+        r.offer(0, &[1.0; 4]);
+        assert_eq!(r.frames.len(), 1);
     }
 }

@@ -197,13 +197,16 @@ impl<R: Read + Seek> TiffPages<R> {
 
 fn decode_png(path: &Path, bytes: &[u8]) -> Result<Image> {
     let err = |e: png::DecodingError| bad(path, format!("cannot decode the PNG: {e}"));
-    let mut decoder = png::Decoder::new(bytes);
+    let mut decoder = png::Decoder::new(std::io::Cursor::new(bytes));
     // Palettes become RGB and 1-4 bit grey becomes 8-bit; 16-bit samples stay 16-bit.
     decoder.set_transformations(png::Transformations::EXPAND);
     let mut reader = decoder.read_info().map_err(err)?;
     let (w, h) = (reader.info().width as usize, reader.info().height as usize);
     check_dims(path, w, h)?;
-    let mut buf = vec![0; reader.output_buffer_size()];
+    let size = reader
+        .output_buffer_size()
+        .ok_or_else(|| bad(path, "the PNG's decoded size does not fit in memory"))?;
+    let mut buf = vec![0; size];
     let out = reader.next_frame(&mut buf).map_err(err)?;
     let buf = &buf[..out.buffer_size()];
     let channels = out.color_type.samples();
