@@ -193,7 +193,7 @@ pub fn measure_video_within(
     budget_bytes: usize,
 ) -> Result<Measures> {
     let mut source = open()?;
-    let mut replay = Replay::new(budget_bytes, source.info().frames_listed);
+    let mut replay = Replay::new(budget_bytes, source.info().frames_listed, source.skips());
     let pass = first_pass(source.as_mut(), cfg, &mut replay)?;
     drop(source);
     let (Some(grid), Some(first)) = (pass.grid, pass.first) else {
@@ -744,9 +744,12 @@ mod tests {
     use super::*;
     use crate::decode::video::{Frame, VideoInfo};
 
-    /// Frames held in memory; `skip_to` does nothing, as for a source that cannot skip.
+    /// Frames held in memory; with `skips` false, `skip_to` does nothing, as for a source
+    /// that cannot skip.
     struct Held {
-        frames: std::vec::IntoIter<Frame>,
+        frames: Vec<Frame>,
+        next: usize,
+        skips: bool,
         info: VideoInfo,
     }
 
@@ -755,7 +758,16 @@ mod tests {
             &self.info
         }
         fn next_frame(&mut self) -> Result<Option<Frame>> {
-            Ok(self.frames.next())
+            self.next += 1;
+            Ok(self.frames.get(self.next - 1).cloned())
+        }
+        fn skip_to(&mut self, index: i64) {
+            while self.skips && self.frames.get(self.next).is_some_and(|f| f.index < index) {
+                self.next += 1;
+            }
+        }
+        fn skips(&self) -> bool {
+            self.skips
         }
     }
 
@@ -791,7 +803,7 @@ mod tests {
 
     #[test]
     fn measures_are_the_same_bits_whether_frames_are_replayed_or_decoded_again() {
-        for whole in [true, false] {
+        for (whole, skips) in [(true, true), (false, true), (true, false)] {
             let frames = rendered(whole);
             let frame_bytes = frames[0].luma.len() * if whole { 1 } else { 4 };
             let mut opened = Vec::new();
@@ -803,7 +815,9 @@ mod tests {
                     || {
                         opens += 1;
                         Ok(Box::new(Held {
-                            frames: frames.clone().into_iter(),
+                            frames: frames.clone(),
+                            next: 0,
+                            skips,
                             info: VideoInfo {
                                 format: "held".into(),
                                 container_fps: None,

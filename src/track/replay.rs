@@ -109,19 +109,34 @@ pub struct Replay {
     budget: usize,
     /// Frames the source lists.
     listed: u64,
+    /// Whether the frames after a kept prefix can be reached without decoding the prefix
+    /// again ([`crate::decode::video::FrameSource::skips`]); if not, only a whole video is
+    /// kept.
+    prefix: bool,
     /// Whether every frame read so far was kept.
     pub whole: bool,
 }
 
 impl Replay {
-    /// Keeps up to `budget_bytes` of a video whose source lists `listed` frames.
-    pub fn new(budget_bytes: usize, listed: u64) -> Self {
+    /// Keeps up to `budget_bytes` of a video whose source lists `listed` frames; `prefix`:
+    /// whether a kept prefix saves decoding (the source skips).
+    pub fn new(budget_bytes: usize, listed: u64, prefix: bool) -> Self {
         Replay {
             frames: Vec::new(),
             bytes: 0,
             budget: budget_bytes,
             listed,
+            prefix,
             whole: true,
+        }
+    }
+
+    /// Stops keeping; what was kept stays only when the second pass can start after it.
+    fn stop(&mut self) {
+        self.whole = false;
+        if !self.prefix {
+            self.frames = Vec::new();
+            self.bytes = 0;
         }
     }
 
@@ -131,18 +146,19 @@ impl Replay {
             return;
         }
         let listed_bytes = self.listed as f64 * luma.len() as f64;
-        if self.frames.is_empty() && (self.budget as f64) < MIN_SHARE * listed_bytes {
-            self.whole = false;
+        let share = if self.prefix { MIN_SHARE } else { 1.0 };
+        if self.frames.is_empty() && (self.budget as f64) < share * listed_bytes {
+            self.stop();
             return;
         }
         // The narrowest form is at least a byte a pixel: skip the copy when even that won't fit.
         if self.bytes + luma.len() > self.budget {
-            self.whole = false;
+            self.stop();
             return;
         }
         let pixels = Pixels::from_luma(luma);
         if self.bytes + pixels.bytes() > self.budget {
-            self.whole = false;
+            self.stop();
             return;
         }
         self.bytes += pixels.bytes();
@@ -179,7 +195,7 @@ mod tests {
 
     #[test]
     fn frames_past_the_budget_are_left_out_and_later_ones_too() {
-        let mut r = Replay::new(10, 4);
+        let mut r = Replay::new(10, 4, true);
         r.offer(0, &[1.0; 4]);
         r.offer(1, &[1.0; 4]);
         r.offer(2, &[1.0; 4]);
@@ -190,11 +206,26 @@ mod tests {
 
     #[test]
     fn nothing_is_kept_when_less_than_a_quarter_of_the_video_would_fit() {
-        let mut r = Replay::new(8, 9);
+        let mut r = Replay::new(8, 9, true);
         r.offer(0, &[1.0; 4]);
         assert!(r.frames.is_empty() && !r.whole);
-        let mut r = Replay::new(9, 9);
+        let mut r = Replay::new(9, 9, true);
         r.offer(0, &[1.0; 4]);
         assert_eq!(r.frames.len(), 1);
+    }
+
+    #[test]
+    fn a_source_that_cannot_skip_keeps_a_whole_video_or_nothing() {
+        let mut r = Replay::new(35, 9, false);
+        r.offer(0, &[1.0; 4]);
+        assert!(r.frames.is_empty() && !r.whole);
+        // Listed as fitting, but the frames come wider than a byte a pixel.
+        let mut r = Replay::new(36, 9, false);
+        r.offer(0, &[1.0; 4]);
+        r.offer(1, &[300.0; 4]);
+        r.offer(2, &[0.5; 4]);
+        assert_eq!(r.frames.len(), 3);
+        r.offer(3, &[0.5; 4]);
+        assert!(r.frames.is_empty() && !r.whole);
     }
 }

@@ -360,6 +360,10 @@ impl FrameSource for AviSource {
         }
     }
 
+    fn skips(&self) -> bool {
+        true
+    }
+
     fn next_frame(&mut self) -> Result<Option<Frame>> {
         loop {
             let Some((index, start, len)) = self.next_chunk()? else {
