@@ -7,8 +7,9 @@
 //! are kept losslessly in the narrowest type that holds their values exactly (8-bit sources as
 //! `u8`, 16-bit as `u16`, anything else, such as a colour frame's BT.601 luma, as `f32`), in
 //! order from the first, until the budget is spent; the second pass replays them and decodes
-//! only the frames after them. Replayed values are bit for bit the decoder's, so both ways give
-//! the same measures.
+//! only the frames after them. A video keeps frames only when a quarter of it fits
+//! ([`MIN_SHARE`]), and one whose source cannot skip (H.264, a multi-page TIFF) only when all of
+//! it fits. Replayed values are bit for bit the decoder's, so both ways give the same measures.
 
 /// Bytes of decoded frames kept for the second pass, per worker. 128 MiB keeps 512 frames of
 /// 512 x 512 at 8 bits (0.26 s at 2000 fps); with [`MIN_SHARE`], only videos of up to 2048 such
