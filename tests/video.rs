@@ -451,7 +451,7 @@ fn crop_strip_shows_the_events(figure: &str, record: &Value, fps: f64) {
     let mut decoder = png::Decoder::new(std::io::Cursor::new(bytes))
         .read_info()
         .unwrap();
-    let mut px = vec![0; decoder.output_buffer_size()];
+    let mut px = vec![0; decoder.output_buffer_size().unwrap()];
     let info = decoder.next_frame(&mut px).unwrap();
     assert_eq!(info.color_type, png::ColorType::Grayscale);
     assert!(info.width == info.height && info.width >= 96, "{info:?}");

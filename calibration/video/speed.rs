@@ -3,8 +3,10 @@
 //! `cargo run --release --example video_speed render DIR [FRAMES]` writes a rendered 512 x 512
 //! trial (8-bit PGM sequence, 2000 fps) into DIR; other formats are made from it with ffmpeg
 //! (see calibration/README.md). `cargo run --release --example video_speed time PATH...` then
-//! reads each video once to decode only and once through `track::measure_video` (which
-//! decodes it twice), and prints a table row per video.
+//! reads each video once to decode only, then through `track::measure_video_within` three
+//! times: with the default replay budget (`track::replay::BUDGET_BYTES`), with none (every
+//! frame decoded twice) and with no limit (every frame decoded once); it prints a table row per
+//! video and whether the three gave the same measures, bit for bit.
 
 use latchtime::decode::video;
 use latchtime::rig::RigProfile;
@@ -15,8 +17,8 @@ fn main() -> Result<(), Box<dyn std::error::Error>> {
     match args.first().map(String::as_str) {
         Some("render") => render(&args[1..]),
         Some("time") => {
-            println!("| video | frames | decode only, frames per CPU second | decode + measures, frames per CPU second |");
-            println!("|---|---|---|---|");
+            println!("| video | frames | decode only | measures, default budget | decoded twice | decoded once | identical |");
+            println!("|---|---|---|---|---|---|---|");
             for p in &args[1..] {
                 time(std::path::Path::new(p))?;
             }
@@ -81,14 +83,31 @@ fn time(path: &std::path::Path) -> Result<(), Box<dyn std::error::Error>> {
         n += 1;
     }
     let decode_s = cpu_s() - start;
-    let start = cpu_s();
-    let m = latchtime::track::measure_video(|| video::open(path), &Default::default())?;
-    let all_s = cpu_s() - start;
+    let mut rates = Vec::new();
+    let mut measures = Vec::new();
+    for budget in [latchtime::track::replay::BUDGET_BYTES, 0, usize::MAX] {
+        let start = cpu_s();
+        let m = latchtime::track::measure_video_within(
+            || video::open(path),
+            &Default::default(),
+            budget,
+        )?;
+        rates.push(m.frame_index.len() as f64 / (cpu_s() - start));
+        // Debug prints each f64 in its shortest exact form: equal text, equal bits.
+        measures.push(format!("{m:?}"));
+    }
     println!(
-        "| {} | {n} | {:.0} | {:.0} |",
+        "| {} | {n} | {:.0} | {:.0} | {:.0} | {:.0} | {} |",
         path.display(),
         n as f64 / decode_s,
-        m.frame_index.len() as f64 / all_s
+        rates[0],
+        rates[1],
+        rates[2],
+        if measures.iter().all(|m| *m == measures[0]) {
+            "yes"
+        } else {
+            "NO"
+        }
     );
     Ok(())
 }

@@ -3,10 +3,13 @@
 //! named regions, and a tracked point ([`lk`]) with its path projected on its main axis (and
 //! its angle about a pivot, when one is given).
 //!
-//! The video is read twice, one frame at a time: the first pass keeps only each frame's block
-//! means (a 16 x 16 grid at most), from which the gain, the principal component and the map of
-//! where the picture changes come; the second pass tracks points in the part of the picture
-//! that changes most. Memory grows with the number of frames only by the block means.
+//! The measures take two passes over the frames: the first keeps each frame's block means (a
+//! 16 x 16 grid at most), from which the gain, the principal component and the map of where
+//! the picture changes come; the second tracks points in the part of the picture that changes
+//! most. The video is decoded once when its decoded frames fit [`replay::BUDGET_BYTES`]: the
+//! second pass replays the frames the first kept ([`replay`]) and decodes only those after
+//! them (a video four times longer than the budget keeps none). Memory grows with the number
+//! of frames only by the block means and that budget.
 //!
 //! Which measures feed the detectors (the rule, [`choose`]): the columns the rig names
 //! (`frames_column`, `loading_column`); else, for the motion (release, peak, oscillation), the
@@ -19,6 +22,7 @@
 //! component with the flag `track_lost`.
 
 pub mod lk;
+pub mod replay;
 pub mod stack;
 
 use serde::{Deserialize, Serialize};
@@ -27,6 +31,7 @@ use crate::decode::video::FrameSource;
 use crate::error::{Error, Result};
 
 use lk::{LkConfig, Plane, Pyramid};
+use replay::{Pixels, Replay};
 use stack::Grid;
 
 /// A named rectangle of the picture, pixels (x, y of its top-left corner).
@@ -102,7 +107,11 @@ struct FirstPass {
     grid: Option<Grid>,
 }
 
-fn first_pass(source: &mut dyn FrameSource, cfg: &MeasureConfig) -> Result<FirstPass> {
+fn first_pass(
+    source: &mut dyn FrameSource,
+    cfg: &MeasureConfig,
+    replay: &mut Replay,
+) -> Result<FirstPass> {
     let mut pass = FirstPass {
         index: Vec::new(),
         blocks: Vec::new(),
@@ -122,6 +131,7 @@ fn first_pass(source: &mut dyn FrameSource, cfg: &MeasureConfig) -> Result<First
             out.push(region_mean(&frame.luma, frame.width, roi));
         }
         pass.index.push(frame.index);
+        replay.offer(frame.index, &frame.luma);
         if pass.first.is_none() {
             pass.first = Some(Plane {
                 width: frame.width,
@@ -167,13 +177,25 @@ fn region_mean(luma: &[f32], width: usize, r: &Roi) -> f64 {
     s / (r.w * r.h) as f64
 }
 
-/// Measures a video. `open` gives a fresh stream from the first frame (the video is read twice).
+/// Measures a video. `open` gives a fresh stream from the first frame; it is called a second
+/// time only when the decoded frames exceed [`replay::BUDGET_BYTES`].
 pub fn measure_video(
-    mut open: impl FnMut() -> Result<Box<dyn FrameSource>>,
+    open: impl FnMut() -> Result<Box<dyn FrameSource>>,
     cfg: &MeasureConfig,
 ) -> Result<Measures> {
+    measure_video_within(open, cfg, replay::BUDGET_BYTES)
+}
+
+/// [`measure_video`] keeping at most `budget_bytes` of decoded frames for the second pass.
+pub fn measure_video_within(
+    mut open: impl FnMut() -> Result<Box<dyn FrameSource>>,
+    cfg: &MeasureConfig,
+    budget_bytes: usize,
+) -> Result<Measures> {
     let mut source = open()?;
-    let pass = first_pass(source.as_mut(), cfg)?;
+    let mut replay = Replay::new(budget_bytes, source.info().frames_listed, source.skips());
+    let pass = first_pass(source.as_mut(), cfg, &mut replay)?;
+    drop(source);
     let (Some(grid), Some(first)) = (pass.grid, pass.first) else {
         return Err(Error::Usage("the video holds no frames".into()));
     };
@@ -197,8 +219,7 @@ pub fn measure_video(
         .collect();
     let plan = TrackPlan::new(&grid, &spread, &first, &gain, cfg);
     drop(first);
-    let mut source = open()?;
-    let tracks = plan.run(source.as_mut(), &gain, pass.index.len())?;
+    let tracks = plan.run(replay, open, &gain, pass.index.len())?;
     let block_px = grid.block_px();
     let (track, track_lost) = pick_track(tracks, block_px as f64, cfg.track_point.is_some());
     let angle_rad = match (&track, cfg.pivot) {
@@ -222,6 +243,9 @@ pub fn measure_video(
 
 /// Where and what to track.
 struct TrackPlan {
+    /// Picture size, pixels.
+    width: usize,
+    height: usize,
     /// Crop (x0, y0, x1, y1) the tracker works in.
     crop: (usize, usize, usize, usize),
     start: Vec<(f32, f32)>,
@@ -268,70 +292,135 @@ impl TrackPlan {
                     .collect()
             }
         };
-        TrackPlan { crop, start }
+        TrackPlan {
+            width: grid.width,
+            height: grid.height,
+            crop,
+            start,
+        }
     }
 
-    /// Follows every start point through the video; per point, its (x, y) per frame (NaN once
-    /// lost).
+    /// Follows every start point through the video: the kept frames, then, when some were
+    /// left out, the frames after them decoded again. Per point, its (x, y) per frame (NaN
+    /// once lost).
     fn run(
         &self,
-        source: &mut dyn FrameSource,
+        replay: Replay,
+        mut open: impl FnMut() -> Result<Box<dyn FrameSource>>,
         gain: &[f64],
         frames: usize,
     ) -> Result<Vec<Vec<(f32, f32)>>> {
-        let cfg = LkConfig::default();
-        let (ox, oy) = (self.crop.0 as f32, self.crop.1 as f32);
-        let mut paths: Vec<Vec<(f32, f32)>> = self
-            .start
-            .iter()
-            .map(|_| Vec::with_capacity(frames))
-            .collect();
-        let mut now: Vec<Option<(f32, f32)>> = self
-            .start
-            .iter()
-            .map(|&(x, y)| Some((x - ox, y - oy)))
-            .collect();
-        let mut prev: Option<Pyramid> = None;
-        let mut i = 0;
-        while let Some(frame) = source.next_frame()? {
-            let g = gain.get(i).copied().unwrap_or(1.0);
-            let full = Plane {
-                width: frame.width,
-                height: frame.height,
-                data: frame.luma,
-            };
-            let pyr = Pyramid::new(crop_plane(&full, self.crop, g), LEVELS, cfg.half_window);
-            if let Some(prev) = &prev {
-                for p in now.iter_mut() {
-                    *p = p.and_then(|q| lk::track(prev, &pyr, q, &cfg));
-                }
-            }
-            for (path, p) in paths.iter_mut().zip(&now) {
-                path.push(p.map_or((f32::NAN, f32::NAN), |q| (q.0 + ox, q.1 + oy)));
-            }
-            prev = Some(pyr);
-            i += 1;
+        let mut tracker = Tracker::new(self, frames);
+        let width = self.width;
+        let last_kept = replay.frames.last().map(|k| k.index);
+        for kept in &replay.frames {
+            let g = gain.get(tracker.seen).copied().unwrap_or(1.0);
+            tracker.push(crop_scaled(width, self.crop, g, |start, x0, x1, s, out| {
+                kept.pixels.extend_scaled(start, x0, x1, s, out)
+            }));
         }
-        if i != frames {
+        drop(replay.frames);
+        if !replay.whole {
+            let mut source = open()?;
+            if let Some(last) = last_kept {
+                source.skip_to(last + 1);
+            }
+            while let Some(frame) = source.next_frame()? {
+                if last_kept.is_some_and(|last| frame.index <= last) {
+                    continue;
+                }
+                if (frame.width, frame.height) != (width, self.height) {
+                    return Err(Error::Usage(format!(
+                        "frame {} is {}x{} on the video's second reading but {width}x{} on its first",
+                        frame.index, frame.width, frame.height, self.height
+                    )));
+                }
+                let g = gain.get(tracker.seen).copied().unwrap_or(1.0);
+                let full = Pixels::F32(frame.luma);
+                tracker.push(crop_scaled(width, self.crop, g, |start, x0, x1, s, out| {
+                    full.extend_scaled(start, x0, x1, s, out)
+                }));
+            }
+        }
+        if tracker.seen != frames {
             return Err(Error::Usage(format!(
-                "the video gave {i} frames on its second reading but {frames} on its first"
+                "the video gave {} frames on its second reading but {frames} on its first",
+                tracker.seen
             )));
         }
-        Ok(paths)
+        Ok(tracker.paths)
+    }
+}
+
+/// The tracker's state between frames.
+struct Tracker {
+    cfg: LkConfig,
+    offset: (f32, f32),
+    paths: Vec<Vec<(f32, f32)>>,
+    now: Vec<Option<(f32, f32)>>,
+    prev: Option<Pyramid>,
+    /// Frames pushed so far.
+    seen: usize,
+}
+
+impl Tracker {
+    fn new(plan: &TrackPlan, frames: usize) -> Self {
+        let (ox, oy) = (plan.crop.0 as f32, plan.crop.1 as f32);
+        Tracker {
+            cfg: LkConfig::default(),
+            offset: (ox, oy),
+            paths: plan
+                .start
+                .iter()
+                .map(|_| Vec::with_capacity(frames))
+                .collect(),
+            now: plan
+                .start
+                .iter()
+                .map(|&(x, y)| Some((x - ox, y - oy)))
+                .collect(),
+            prev: None,
+            seen: 0,
+        }
+    }
+
+    /// Follows the points into the next frame's gain-corrected crop.
+    fn push(&mut self, crop: Plane) {
+        let pyr = Pyramid::new(crop, LEVELS, self.cfg.half_window);
+        if let Some(prev) = &self.prev {
+            for p in self.now.iter_mut() {
+                *p = p.and_then(|q| lk::track(prev, &pyr, q, &self.cfg));
+            }
+        }
+        let (ox, oy) = self.offset;
+        for (path, p) in self.paths.iter_mut().zip(&self.now) {
+            path.push(p.map_or((f32::NAN, f32::NAN), |q| (q.0 + ox, q.1 + oy)));
+        }
+        self.prev = Some(pyr);
+        self.seen += 1;
     }
 }
 
 /// The crop of `img`, divided by the frame's gain.
 fn crop_plane(img: &Plane, crop: (usize, usize, usize, usize), gain: f64) -> Plane {
+    crop_scaled(img.width, crop, gain, |start, x0, x1, s, out| {
+        out.extend(img.data[start + x0..start + x1].iter().map(|v| v * s))
+    })
+}
+
+/// The crop of a frame `width` pixels wide whose row segments `rows(row start, x0, x1,
+/// scale, out)` appends, each value times the inverse of the frame's gain.
+fn crop_scaled(
+    width: usize,
+    crop: (usize, usize, usize, usize),
+    gain: f64,
+    mut rows: impl FnMut(usize, usize, usize, f32, &mut Vec<f32>),
+) -> Plane {
     let (x0, y0, x1, y1) = crop;
     let inv = (1.0 / gain) as f32;
     let mut data = Vec::with_capacity((x1 - x0) * (y1 - y0));
     for y in y0..y1 {
-        data.extend(
-            img.data[y * img.width + x0..y * img.width + x1]
-                .iter()
-                .map(|v| v * inv),
-        );
+        rows(y * width, x0, x1, inv, &mut data);
     }
     Plane {
         width: x1 - x0,
@@ -653,6 +742,103 @@ pub fn lamp_hz(gain: &[f64], fps: f64) -> Option<f64> {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::decode::video::{Frame, VideoInfo};
+
+    /// Frames held in memory; with `skips` false, `skip_to` does nothing, as for a source
+    /// that cannot skip.
+    struct Held {
+        frames: Vec<Frame>,
+        next: usize,
+        skips: bool,
+        info: VideoInfo,
+    }
+
+    impl FrameSource for Held {
+        fn info(&self) -> &VideoInfo {
+            &self.info
+        }
+        fn next_frame(&mut self) -> Result<Option<Frame>> {
+            self.next += 1;
+            Ok(self.frames.get(self.next - 1).cloned())
+        }
+        fn skip_to(&mut self, index: i64) {
+            while self.skips && self.frames.get(self.next).is_some_and(|f| f.index < index) {
+                self.next += 1;
+            }
+        }
+        fn skips(&self) -> bool {
+            self.skips
+        }
+    }
+
+    /// A rendered swing with flicker, 0.2 s at 1000 fps, its values rounded to whole grey
+    /// levels when `whole` (an 8-bit source) and kept as rendered otherwise.
+    fn rendered(whole: bool) -> Vec<Frame> {
+        use crate::synth::{self, SynthConfig, TrialKind};
+        let config = SynthConfig {
+            fps: 1000.0,
+            audio: false,
+            duration_s: 0.2,
+            ..SynthConfig::default()
+        };
+        let rig = crate::rig::RigProfile::default();
+        let trial = synth::generate("t", TrialKind::Normal, &config, &rig, 3);
+        let scene = synth::video::Scene {
+            flicker: Some((100.0, 0.03)),
+            ..synth::video::Scene::default()
+        };
+        synth::video::render(&trial, &scene)
+            .map(|(k, luma)| Frame {
+                index: k as i64,
+                width: scene.width,
+                height: scene.height,
+                luma: if whole {
+                    luma.iter().map(|v| v.round().clamp(0.0, 255.0)).collect()
+                } else {
+                    luma
+                },
+            })
+            .collect()
+    }
+
+    #[test]
+    fn measures_are_the_same_bits_whether_frames_are_replayed_or_decoded_again() {
+        for (whole, skips) in [(true, true), (false, true), (true, false)] {
+            let frames = rendered(whole);
+            let frame_bytes = frames[0].luma.len() * if whole { 1 } else { 4 };
+            let mut opened = Vec::new();
+            let mut results = Vec::new();
+            // None kept, the first 57 of 200 kept, all kept.
+            for budget in [0, 57 * frame_bytes, usize::MAX] {
+                let mut opens = 0;
+                let m = measure_video_within(
+                    || {
+                        opens += 1;
+                        Ok(Box::new(Held {
+                            frames: frames.clone(),
+                            next: 0,
+                            skips,
+                            info: VideoInfo {
+                                format: "held".into(),
+                                container_fps: None,
+                                frames_listed: frames.len() as u64,
+                            },
+                        }))
+                    },
+                    &MeasureConfig::default(),
+                    budget,
+                )
+                .unwrap();
+                assert!(m.track.as_ref().is_some_and(|t| t.range_px > 5.0));
+                opened.push(opens);
+                // Debug prints each f64 in its shortest exact form: equal text, equal bits.
+                results.push(format!("{m:?}"));
+            }
+            assert_eq!(opened, [2, 2, 1]);
+            assert_eq!(results[0], results[1]);
+            assert_eq!(results[0], results[2]);
+        }
+    }
 
     #[test]
     fn lamp_at_100_hz_is_found_in_the_gain_at_1000_fps() {

@@ -36,6 +36,8 @@ pub struct AviSource {
     pos: u64,
     end: u64,
     count: i64,
+    /// A chunk [`FrameSource::skip_to`] read the header of but did not skip.
+    ahead: Option<(i64, u64, u64)>,
     size: Option<(usize, usize)>,
     info: VideoInfo,
 }
@@ -86,6 +88,7 @@ impl AviSource {
             pos: 0,
             end: 0,
             count: 0,
+            ahead: None,
             size: None,
             info: VideoInfo {
                 format: String::new(),
@@ -303,12 +306,12 @@ fn parse_strl(path: &Path, body: &[u8], stream_no: usize) -> Result<Option<Heade
     }))
 }
 
-impl FrameSource for AviSource {
-    fn info(&self) -> &VideoInfo {
-        &self.info
-    }
-
-    fn next_frame(&mut self) -> Result<Option<Frame>> {
+impl AviSource {
+    /// The next video chunk: its frame number, where its data starts and its length.
+    fn next_chunk(&mut self) -> Result<Option<(i64, u64, u64)>> {
+        if let Some(chunk) = self.ahead.take() {
+            return Ok(Some(chunk));
+        }
         loop {
             if self.pos + 8 > self.end {
                 let Some((start, end)) = self.regions.pop() else {
@@ -332,6 +335,40 @@ impl FrameSource for AviSource {
             }
             let index = self.count;
             self.count += 1;
+            return Ok(Some((index, start, len)));
+        }
+    }
+}
+
+impl FrameSource for AviSource {
+    fn info(&self) -> &VideoInfo {
+        &self.info
+    }
+
+    /// Moves past the video chunks numbered before `index` without reading their data.
+    fn skip_to(&mut self, index: i64) {
+        loop {
+            match self.next_chunk() {
+                Ok(Some(chunk)) if chunk.0 < index => {}
+                Ok(Some(chunk)) => {
+                    self.ahead = Some(chunk);
+                    return;
+                }
+                // An unreadable header is met again, and reported, by `next_frame`.
+                _ => return,
+            }
+        }
+    }
+
+    fn skips(&self) -> bool {
+        true
+    }
+
+    fn next_frame(&mut self) -> Result<Option<Frame>> {
+        loop {
+            let Some((index, start, len)) = self.next_chunk()? else {
+                return Ok(None);
+            };
             if len == 0 {
                 continue;
             }
@@ -436,6 +473,20 @@ mod tests {
             (3, vec![30.0, 31.0, 32.0, 33.0]),
         ];
         assert_eq!(got, want);
+    }
+
+    #[test]
+    fn skipping_passes_over_frames_without_moving_any_frame_number() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("odml.avi");
+        std::fs::write(&path, opendml_avi()).unwrap();
+        // To the dropped frame 1 (the next frame is 2), into the AVIX part, past the end.
+        for (to, want) in [(0, Some(0)), (1, Some(2)), (3, Some(3)), (9, None)] {
+            let mut avi = AviSource::open(&path).unwrap();
+            avi.skip_to(to);
+            avi.skip_to(to);
+            assert_eq!(avi.next_frame().unwrap().map(|f| f.index), want, "{to}");
+        }
     }
 
     #[test]

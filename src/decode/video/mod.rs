@@ -53,6 +53,10 @@ pub trait FrameSource {
     /// Passes over the frames before `index` without decoding them where the source can
     /// (an image sequence's files); elsewhere does nothing, and `next_frame` reads them.
     fn skip_to(&mut self, _index: i64) {}
+    /// Whether [`FrameSource::skip_to`] passes over frames without decoding them.
+    fn skips(&self) -> bool {
+        false
+    }
 }
 
 /// File extensions (lower case) always read as video containers. A `.mp4` is video only when

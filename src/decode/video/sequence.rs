@@ -214,13 +214,18 @@ impl FrameSource for Sequence {
     /// Moves past the files numbered before `index` unread; a lone multi-page TIFF's pages
     /// are read in turn.
     fn skip_to(&mut self, index: i64) {
-        let lone_tiff = self.members.len() == 1 && self.kind == ImageKind::Tiff;
-        if lone_tiff || self.pages.is_some() {
+        if !self.skips() {
             return;
         }
         while self.members.get(self.next).is_some_and(|m| m.index < index) {
             self.next += 1;
         }
+    }
+
+    /// Files are skipped unread; a lone multi-page TIFF's pages are not.
+    fn skips(&self) -> bool {
+        let lone_tiff = self.members.len() == 1 && self.kind == ImageKind::Tiff;
+        !lone_tiff && self.pages.is_none()
     }
 
     fn next_frame(&mut self) -> Result<Option<Frame>> {
