@@ -76,9 +76,11 @@ pub fn find_innovation(
     let step = (m / 2).max(1);
     let to = to.min(y.len());
     let mut t = from + FIRST_TRAINING;
+    let mut normal = NormalEquations::default();
     while t + m <= to {
         let start = from.max(t.saturating_sub(levels.train_max));
-        if let Some(model) = fit(y, start, t) {
+        normal.slide_to(y, start, t);
+        if let Some(model) = normal.model() {
             if stands_out(y, &model, t, m, levels) {
                 let (onset, interval) = onset_from(y, &model, start, t, m);
                 let end = (onset + levels.own_len.max(1)).min(y.len());
@@ -129,43 +131,97 @@ impl Model {
     }
 }
 
-/// Least-squares fit of the prediction model to `y[start..end]` (covariance method), of the
-/// order its length allows; `None` under the lowest order or when singular.
-fn fit(y: &[f64], start: usize, end: usize) -> Option<Model> {
-    let len = end.checked_sub(start)?;
+/// Order of the prediction model fitted to `len` samples: a fifth of them, at most
+/// [`MAX_ORDER`]; `None` under [`MIN_ORDER`].
+fn order_for(len: usize) -> Option<usize> {
     let p = (len / 5).min(MAX_ORDER);
-    if p < MIN_ORDER {
-        return None;
-    }
-    let rows = len - p;
-    let mut r = vec![0.0; p * p];
-    let mut v = vec![0.0; p];
-    for n in start + p..end {
+    (p >= MIN_ORDER).then_some(p)
+}
+
+/// The normal equations of the prediction model over a training stretch `start..end`
+/// (covariance method: rows n = start + p .. end predict y[n] from y[n - 1 - k]), kept up to
+/// date as the stretch slides: rows that enter are added and rows that leave taken off, so a
+/// step costs its new rows rather than the whole stretch.
+#[derive(Default)]
+struct NormalEquations {
+    p: usize,
+    start: usize,
+    end: usize,
+    /// Lower triangle of sum x x' (row-major, p x p).
+    r: Vec<f64>,
+    /// sum x y[n].
+    v: Vec<f64>,
+    /// sum y[n]^2.
+    yy: f64,
+}
+
+impl NormalEquations {
+    /// Adds (`sign` 1) or takes off (-1) row `n`.
+    fn row(&mut self, y: &[f64], n: usize, sign: f64) {
+        let p = self.p;
+        let yn = y[n];
+        self.yy += sign * yn * yn;
         for i in 0..p {
-            let yi = y[n - 1 - i];
-            v[i] += yi * y[n];
+            let yi = sign * y[n - 1 - i];
+            self.v[i] += yi * yn;
             for j in 0..=i {
-                r[i * p + j] += yi * y[n - 1 - j];
+                self.r[i * p + j] += yi * y[n - 1 - j];
             }
         }
     }
-    // A faint ridge keeps a model of noise alone (nearly white, well conditioned anyway) and
-    // a model with more poles than resonances solvable.
-    let trace: f64 = (0..p).map(|i| r[i * p + i]).sum();
-    for i in 0..p {
-        r[i * p + i] += 1e-9 * trace / p as f64 + 1e-300;
+
+    /// Moves the stretch to `start..end` (neither end moving back), rebuilding when the order
+    /// changes or the stretches do not overlap.
+    fn slide_to(&mut self, y: &[f64], start: usize, end: usize) {
+        let p = (end.saturating_sub(start) / 5).min(MAX_ORDER);
+        let overlaps = start + p < self.end && start >= self.start && end >= self.end;
+        if p != self.p || !overlaps {
+            *self = NormalEquations {
+                p,
+                start,
+                end: start + p,
+                r: vec![0.0; p * p],
+                v: vec![0.0; p],
+                yy: 0.0,
+            };
+        }
+        for n in self.end.max(start + p)..end {
+            self.row(y, n, 1.0);
+        }
+        for n in self.start + p..start + p {
+            self.row(y, n, -1.0);
+        }
+        (self.start, self.end) = (start, end);
     }
-    let a = cholesky_solve(&mut r, &v, p)?;
-    let mut model = Model {
-        a,
-        residual_var: 0.0,
-        rows,
-    };
-    let rss: f64 = (start + p..end)
-        .map(|n| model.innovation(y, n).powi(2))
-        .sum();
-    model.residual_var = rss / (rows - p).max(1) as f64;
-    Some(model)
+
+    /// Least-squares fit of the prediction model to the stretch; `None` under the lowest
+    /// order or when singular. The residual is sum y^2 - 2 a'v + a'Ra.
+    fn model(&self) -> Option<Model> {
+        let p = order_for(self.end - self.start)?;
+        let rows = self.end - self.start - p;
+        let mut r = self.r.clone();
+        // A faint ridge keeps a model of noise alone (nearly white, well conditioned anyway)
+        // and a model with more poles than resonances solvable.
+        let trace: f64 = (0..p).map(|i| r[i * p + i]).sum();
+        for i in 0..p {
+            r[i * p + i] += 1e-9 * trace / p as f64 + 1e-300;
+        }
+        let a = cholesky_solve(&mut r, &self.v, p)?;
+        let mut quad = 0.0;
+        for i in 0..p {
+            quad += a[i] * a[i] * self.r[i * p + i];
+            for j in 0..i {
+                quad += 2.0 * a[i] * a[j] * self.r[i * p + j];
+            }
+        }
+        let av: f64 = a.iter().zip(&self.v).map(|(a, v)| a * v).sum();
+        let rss = (self.yy - 2.0 * av + quad).max(0.0);
+        Some(Model {
+            a,
+            residual_var: rss / (rows - p).max(1) as f64,
+            rows,
+        })
+    }
 }
 
 /// Solves the symmetric positive definite system whose lower triangle is in `r` (row-major,
@@ -233,6 +289,43 @@ mod tests {
     use rand_distr::{Distribution, Normal};
 
     const FS: f64 = 96_000.0;
+
+    #[test]
+    fn sliding_normal_equations_give_the_model_a_fresh_fit_gives() {
+        // A two-resonance ring in noise; the stretch slides as in the search, and at every
+        // step the model kept up to date must match one built from scratch.
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+        let noise = Normal::new(0.0, 1e-4).unwrap();
+        let mut y: Vec<f64> = (0..3000).map(|_| noise.sample(&mut rng)).collect();
+        ring(
+            &mut y,
+            100,
+            &[(7000.0, 0.5, 0.002), (11_000.0, 0.3, 0.0007)],
+        );
+        let mut kept = NormalEquations::default();
+        for t in (140usize..2900).step_by(5) {
+            let start = 100.max(t.saturating_sub(144));
+            kept.slide_to(&y, start, t);
+            let mut fresh = NormalEquations::default();
+            fresh.slide_to(&y, start, t);
+            let (Some(a), Some(b)) = (kept.model(), fresh.model()) else {
+                panic!("no model at {t}");
+            };
+            for (x, z) in a.a.iter().zip(&b.a) {
+                assert!((x - z).abs() <= 1e-6 * (1.0 + z.abs()), "{t}: {x} vs {z}");
+            }
+            // And the residual from the normal equations is the one summed sample by sample.
+            let p = a.order();
+            let direct = (start + p..t)
+                .map(|n| a.innovation(&y, n).powi(2))
+                .sum::<f64>()
+                / (a.rows - p).max(1) as f64;
+            for (what, got) in [("fresh", b.residual_var), ("direct", direct)] {
+                let rel = (a.residual_var - got).abs() / got.max(1e-300);
+                assert!(rel < 1e-3, "{t} {what}: {} vs {got}", a.residual_var);
+            }
+        }
+    }
 
     /// Resonances (Hz, amplitude, amplitude decay s) struck at sample `at`.
     fn ring(y: &mut [f64], at: usize, modes: &[(f64, f64, f64)]) {
