@@ -132,7 +132,7 @@ impl Default for RigProfile {
             click_core_false_alarm: 0.1,
             click_window_ms: 0.5,
             double_click_window_ms: 30.0,
-            min_click_centroid_hz: 2000.0,
+            min_click_centroid_hz: 1000.0,
             click_detection_top_hz: 20_000.0,
             click_merge_ms: 1.0,
             release_rate_fraction: 0.1,

@@ -71,7 +71,11 @@ pub struct ClickConfig {
     pub window_ms: f64,
     /// Crossings closer than this belong to one transient, ms. Default 1 ms: one click's ringing.
     pub merge_ms: f64,
-    /// Spectral centroid a transient needs to count as a click, Hz. Default 2000 Hz.
+    /// Spectral centroid a transient needs to count as a click, Hz. Default 1000 Hz: handling
+    /// thumps lie at 20-400 Hz; at 2000 Hz a click whose lowest resonance sits near 2 kHz read
+    /// as a thump (centroid 1950 Hz at 47 dB SNR, 0.09 ms rise), and click misses on
+    /// independent trials (tuning seed 5, 44.1 and 96 kHz) halved at 1000 Hz with the same
+    /// thumps found.
     pub min_centroid_hz: f64,
     /// Upper edge of the detection band, Hz. Default 20 kHz: most of a click's energy lies
     /// below it, while white noise spreads to half the sample rate, so band-limiting the
@@ -108,7 +112,7 @@ impl Default for ClickConfig {
             false_alarm: 0.005,
             window_ms: 0.5,
             merge_ms: 1.0,
-            min_centroid_hz: 2000.0,
+            min_centroid_hz: 1000.0,
             detection_top_hz: 20_000.0,
             group_window_ms: 30.0,
             group_level_db: -12.0,
