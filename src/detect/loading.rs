@@ -111,9 +111,28 @@ pub fn departure_s(t: &[f64], y: &[f64], onset_s: f64, end: usize, sigma: f64) -
 /// the share of white noise of per-frame SD `sigma`; zero unless the block means scatter
 /// more than white noise would at the 1 % level.
 pub fn widen_for_wander(t: &[f64], y: &[f64], found: &mut LoadingOnset, end: usize, sigma: f64) {
+    if let Some(drift) = MonotoneDrift::new(t, y, found.onset_s, end) {
+        widen(&drift, t, found, sigma);
+    }
+}
+
+/// Sets `found.departure_s` ([`departure_s`]) and widens the interval for a wandering measure
+/// ([`widen_for_wander`]) from one monotone fit of the frames after the onset.
+pub fn read_departure_and_wander(
+    t: &[f64],
+    y: &[f64],
+    found: &mut LoadingOnset,
+    end: usize,
+    sigma: f64,
+) {
     let Some(drift) = MonotoneDrift::new(t, y, found.onset_s, end) else {
         return;
     };
+    found.departure_s = drift.crossing_s(DEPARTURE_SIGMA * sigma);
+    widen(&drift, t, found, sigma);
+}
+
+fn widen(drift: &MonotoneDrift, t: &[f64], found: &mut LoadingOnset, sigma: f64) {
     let wander_sd = drift.wander_sd(sigma);
     let Some(rise_s) = drift.crossing_s(2.0 * wander_sd) else {
         return;

@@ -550,14 +550,13 @@ pub fn detect_video(series: &FrameSeries, rig: &RigProfile) -> VideoEvents {
     let loading_sigma = trace::noise_sigma(&series.loading, loading_step);
     let loading = loading::detect_loading(t, &series.loading, loading_end, clock.period_s).map(
         |mut found| {
-            found.departure_s = loading::departure_s(
+            loading::read_departure_and_wander(
                 t,
                 &series.loading,
-                found.onset_s,
+                &mut found,
                 loading_end,
                 loading_sigma,
             );
-            loading::widen_for_wander(t, &series.loading, &mut found, loading_end, loading_sigma);
             found
         },
     );
