@@ -21,9 +21,18 @@
 //!   spread.
 //! - motion peak: the data's own first extremum in the direction of the motion (the frame where
 //!   the phase's move turns back), refined by a least-squares fit of two half-parabolas that
-//!   share a vertex (the rise and the fall of a peak need not be equally sharp) over the frames
-//!   within four noise standard deviations of the top; by a parabola through three frames when
-//!   fewer than six are that close. No model fitted to other frames ever moves it.
+//!   share a vertex (the rise and the fall of a peak need not be equally sharp; a side that
+//!   does not fall is held flat). The frames first come from a walk out of the highest frame
+//!   to a drop of four noise standard deviations (a parabola through three frames when fewer
+//!   than six are that close). When the top is wide (the peak rate eight frames or more
+//!   before it: slow releases at thousands of frames a second), the highest frame is a noise
+//!   spike and the walk stops at the first low frame, so the window is then set by the peak's
+//!   own curvature instead: each side reaches as far as the fitted parabola falls by 15 % of
+//!   that side's swing (at least four noise standard deviations), never back past the peak
+//!   rate and never past 60 % of the way to the first trough (a fast mode riding on the slow
+//!   one bends the fall there, and its second crest is not the first extremum); window and
+//!   fit alternate until the window holds still. No model fitted to other frames ever moves
+//!   the peak.
 //! - end of the fast phase: the motion peak when the motion runs straight into it; when the
 //!   motion comes to rest first (overdamped, or a peak reached long after the speed has fallen
 //!   under `rate_fraction` of its peak), the release fit run backwards in time from the rest.
@@ -644,18 +653,60 @@ struct Peak {
 /// 0.8 rad of phase, where the parabola's curvature is off by about 5 %.
 const PEAK_SIDE_SHARE: f64 = 0.15;
 
-/// The data's own extremum (direction `s`) near frame `k`: the best frame within `w` of it,
-/// refined by [`two_sided_vertex`] over the frames on each side within a drop of the larger of
-/// four noise standard deviations and [`PEAK_SIDE_SHARE`] of that side's swing (`rise`
-/// before; the fall to the first trough after).
-fn refine_peak(t: &[f64], y: &[f64], k: usize, w: usize, s: f64, rise: f64, sigma: f64) -> Peak {
+/// Least drop, in noise standard deviations, that each side of a peak's window reaches: a side
+/// whose swing is a few noise standard deviations is read over the frames where it falls by
+/// this much, or the noise of a flat top would place the peak.
+const PEAK_DROP_SIGMA: f64 = 4.0;
+
+/// Share of the way from the peak to the first trough after it that the window may reach: a
+/// fast mode riding on the slow one bends the fall within its own half-period, and the window
+/// must end before the fall's inflection.
+const PEAK_FALL_REACH: f64 = 0.6;
+
+/// Frames from the peak rate to the peak from which a top is wide enough for its own window
+/// ([`curvature_window_peak`]); a narrower top is read over the frames the walk finds.
+const WIDE_TOP_FRAMES: f64 = 8.0;
+
+/// Widest side of a peak's window, frames, and the rounds of window and fit tried before the
+/// window is taken to wander.
+const PEAK_SIDE_MAX: usize = 2048;
+const PEAK_ROUNDS: usize = 16;
+
+/// The data's own extremum (direction `s`) near frame `k`: [`walked_peak`] first, then the
+/// window that the peak's own curvature sets ([`curvature_window_peak`]) when that holds.
+#[allow(clippy::too_many_arguments)] // reason: the phase's pieces, each used once here
+fn refine_peak(
+    t: &[f64],
+    y: &[f64],
+    k: usize,
+    w: usize,
+    s: f64,
+    rise: f64,
+    sigma: f64,
+    t_mid_s: f64,
+) -> Peak {
+    let walked = walked_peak(t, y, k, w, s, rise, sigma);
+    let n = t.len();
+    let period = (t[n - 1] - t[0]) / (n - 1).max(1) as f64;
+    if walked.time_s - t_mid_s < WIDE_TOP_FRAMES * period {
+        return walked;
+    }
+    curvature_window_peak(t, y, walked.index, s, rise, sigma, t_mid_s).unwrap_or(walked)
+}
+
+/// The best frame within `w` of `k`, refined by [`two_sided_fit`] over the frames on each side
+/// within a drop of the larger of four noise standard deviations and [`PEAK_SIDE_SHARE`] of
+/// that side's swing (`rise` before; the fall to the first trough after). The walk stops at
+/// the first frame that far under the best one, so on a top that stays within noise for many
+/// frames it is a start only: the best frame there is a noise spike.
+fn walked_peak(t: &[f64], y: &[f64], k: usize, w: usize, s: f64, rise: f64, sigma: f64) -> Peak {
     let n = y.len();
     let (lo, hi) = (k.saturating_sub(w), (k + w).min(n - 1));
     let k = (lo..=hi)
         .max_by(|&a, &b| (s * y[a]).total_cmp(&(s * y[b])))
         .unwrap_or(k);
     let reach = (2 * w).max(8) * 8;
-    let fall = first_trough_depth(y, k, s, reach, sigma);
+    let (_, fall) = first_trough(y, k, s, reach, sigma);
     let drop_before = (4.0 * sigma).max(PEAK_SIDE_SHARE * rise.abs());
     let drop_after = (4.0 * sigma).max(PEAK_SIDE_SHARE * fall);
     let mut a = k;
@@ -669,10 +720,10 @@ fn refine_peak(t: &[f64], y: &[f64], k: usize, w: usize, s: f64, rise: f64, sigm
     let (a, b) = (a.min(k.saturating_sub(2)), b.max((k + 2).min(n - 1)));
     let period = (t[n - 1] - t[0]) / (n - 1).max(1) as f64;
     let fitted = (b + 1 - a >= 5)
-        .then(|| two_sided_vertex(&t[a..=b], &y[a..=b], s))
+        .then(|| two_sided_fit(&t[a..=b], &y[a..=b], s))
         .flatten();
     let (time_s, value, sd_s) = match fitted {
-        Some(v) => v,
+        Some(f) => (f.vertex_s, f.value, f.sd_s),
         None => {
             let (tp, yp) = super::refine_extremum(t, y, k);
             (tp, yp, super::vertex_sd(t, y, k, sigma))
@@ -686,70 +737,199 @@ fn refine_peak(t: &[f64], y: &[f64], k: usize, w: usize, s: f64, rise: f64, sigm
     }
 }
 
-/// Depth of the first trough after the peak at frame `k` (direction `s`), within `reach`
-/// frames: the trace's running minimum until it climbs back by six noise standard deviations
-/// or a fifth of the depth so far.
-fn first_trough_depth(y: &[f64], k: usize, s: f64, reach: usize, sigma: f64) -> f64 {
+/// The peak near frame `k` over the window its own curvature sets: each side reaches as far as
+/// a parabola of the fitted curvature falls by [`PEAK_SIDE_SHARE`] of that side's swing (at
+/// least [`PEAK_DROP_SIGMA`] noise standard deviations), never back past the peak rate
+/// `t_mid_s` (the rise's inflection) nor past [`PEAK_FALL_REACH`] of the way to the first
+/// trough. Window and [`two_sided_fit`] alternate until the window holds still. The drops are
+/// those of the fitted parabola, not of single frames, so a flat noisy top is read whole and
+/// a sharp one over a few frames. `None` when the window does not settle within
+/// [`PEAK_ROUNDS`] or the vertex leaves the frames between the peak rate and the trough.
+fn curvature_window_peak(
+    t: &[f64],
+    y: &[f64],
+    k: usize,
+    s: f64,
+    rise: f64,
+    sigma: f64,
+    t_mid_s: f64,
+) -> Option<Peak> {
+    let n = y.len();
+    let period = (t[n - 1] - t[0]) / (n - 1).max(1) as f64;
+    let first = t.partition_point(|v| *v < t_mid_s).min(n - 1);
+    let (mut before, mut after) = (16usize, 16usize);
+    let mut centre = k;
+    let (kt, fall) = first_trough(y, k, s, 4096, sigma);
+    let mut last_vertex_s = f64::NAN;
+    for round in 0..PEAK_ROUNDS {
+        let a = centre.saturating_sub(before).max(first);
+        let b = (centre + after).min(n - 1).min(kt);
+        if b < a + 5 {
+            return None;
+        }
+        let fit = two_sided_fit(&t[a..=b], &y[a..=b], s)?;
+        centre = nearest_frame(t, fit.vertex_s);
+        let most_after = ((PEAK_FALL_REACH * kt.saturating_sub(centre) as f64) as usize).max(3);
+        let side = |curvature: f64, drop: f64, most: usize| -> usize {
+            let per_frame = (s * curvature * period * period).max(1e-12 * sigma);
+            ((drop / per_frame).sqrt().min(most as f64) as usize).max(3)
+        };
+        let drop_before = (PEAK_SIDE_SHARE * rise.abs()).max(PEAK_DROP_SIGMA * sigma);
+        let drop_after = (PEAK_SIDE_SHARE * fall).max(PEAK_DROP_SIGMA * sigma);
+        let wanted = (
+            side(-fit.before, drop_before, PEAK_SIDE_MAX),
+            side(-fit.after, drop_after, most_after),
+        );
+        // Settled: the window holds still (within a frame a side), or the vertex moves by
+        // under a quarter frame.
+        let still = |now: usize, want: usize| now.abs_diff(want) <= 1;
+        let settled = (still(before, wanted.0) && still(after, wanted.1))
+            || (fit.vertex_s - last_vertex_s).abs() < 0.25 * period;
+        if settled {
+            let inside = t[first] <= fit.vertex_s && fit.vertex_s <= t[kt];
+            return inside.then_some(Peak {
+                index: t.partition_point(|v| *v < fit.vertex_s).min(n - 1),
+                time_s: fit.vertex_s,
+                value: fit.value,
+                sd_s: fit.sd_s.clamp(0.05 * period, 4.0 * period),
+            });
+        }
+        // Window and vertex can swap between two states: after the first rounds the window
+        // moves half way to the one wanted, which settles them.
+        (before, after) = if round < 3 {
+            wanted
+        } else {
+            (
+                (before + wanted.0).div_ceil(2),
+                (after + wanted.1).div_ceil(2),
+            )
+        };
+        last_vertex_s = fit.vertex_s;
+    }
+    None
+}
+
+/// Index of the frame nearest `x_s`.
+fn nearest_frame(t: &[f64], x_s: f64) -> usize {
+    let n = t.len();
+    let j = t.partition_point(|v| *v < x_s).min(n - 1);
+    if j > 0 && (x_s - t[j - 1]).abs() < (t[j] - x_s).abs() {
+        j - 1
+    } else {
+        j
+    }
+}
+
+/// The first trough after the peak at frame `k` (direction `s`), within `reach` frames: the
+/// trace's running minimum until it climbs back by six noise standard deviations or a fifth
+/// of the depth so far. Returns its frame and depth.
+fn first_trough(y: &[f64], k: usize, s: f64, reach: usize, sigma: f64) -> (usize, f64) {
     let top = s * y[k];
-    let mut low = top;
-    for v in y.iter().skip(k + 1).take(reach) {
+    let (mut low, mut at) = (top, k);
+    for (j, v) in y.iter().enumerate().skip(k + 1).take(reach) {
         let v = s * v;
-        low = low.min(v);
+        if v < low {
+            (low, at) = (v, j);
+        }
         if v - low > (6.0 * sigma).max(0.2 * (top - low)) {
             break;
         }
     }
-    top - low
+    (at, top - low)
 }
 
+/// A fit of two half-parabolas that share a vertex: the vertex time and value, the vertex
+/// time's standard uncertainty, and the coefficients of (t - tp)^2 before and after it.
+#[derive(Debug, Clone, Copy, PartialEq)]
+struct TopFit {
+    vertex_s: f64,
+    value: f64,
+    sd_s: f64,
+    before: f64,
+    after: f64,
+}
+
+/// Vertices tried across the window before the search goes frame by frame (as
+/// [`COARSE_JOINTS`]: a window of thousands of frames on a flat top).
+const COARSE_VERTICES: usize = 48;
+
 /// Least-squares fit of y = c + a_l (t - tp)^2 [t < tp] + a_r (t - tp)^2 [t >= tp] to the
-/// frames `t`, `y` (both curvatures of the sign that makes a peak in direction `s`): the rise
-/// and the fall of a peak each get their own curvature. The vertex tp is sought over the inner
-/// frames, then refined between frames by golden-section search. Returns tp, the value there
-/// and tp's standard uncertainty (the 95 % profile-likelihood half-width over 1.96).
-fn two_sided_vertex(t: &[f64], y: &[f64], s: f64) -> Option<(f64, f64, f64)> {
+/// frames `t`, `y`: the rise and the fall of a peak each get their own curvature. A side whose
+/// curvature comes out of the wrong sign for a peak in direction `s` is held flat (the motion
+/// comes to rest on that side); both wrong, the fit is the mean. The vertex tp is sought over
+/// the inner frames (a coarse grid, then frame by frame near the best), then refined between
+/// frames by golden-section search. The vertex time's standard uncertainty is the 95 %
+/// profile-likelihood half-width over 1.96.
+fn two_sided_fit(t: &[f64], y: &[f64], s: f64) -> Option<TopFit> {
     let m = t.len();
     if m < 5 {
         return None;
     }
-    let fit = |tp: f64| -> Option<(f64, f64)> {
-        let mut m = [[0.0; 3]; 3];
-        let mut v = [0.0; 3];
-        for (&ti, &yi) in t.iter().zip(y) {
+    let fit = |tp: f64| -> Option<(f64, [f64; 3])> {
+        let basis = |ti: f64| {
             let h = (ti - tp) * (ti - tp);
-            let basis = if ti < tp {
+            if ti < tp {
                 [1.0, h, 0.0]
             } else {
                 [1.0, 0.0, h]
-            };
+            }
+        };
+        let mut m = [[0.0; 3]; 3];
+        let mut v = [0.0; 3];
+        for (&ti, &yi) in t.iter().zip(y) {
+            let b = basis(ti);
             for p in 0..3 {
-                v[p] += basis[p] * yi;
+                v[p] += b[p] * yi;
                 for q in 0..3 {
-                    m[p][q] += basis[p] * basis[q];
+                    m[p][q] += b[p] * b[q];
                 }
             }
         }
-        let c = super::solve_linear(m, v)?;
+        let mut c = super::solve_linear(m, v)?;
+        if s * c[1] > 0.0 || s * c[2] > 0.0 {
+            // Hold a side flat: its unknown decouples and solves to zero.
+            for j in (1..3).filter(|&j| s * c[j] > 0.0) {
+                m[j] = [0.0; 3];
+                m.iter_mut().for_each(|row| row[j] = 0.0);
+                (m[j][j], v[j]) = (1.0, 0.0);
+            }
+            c = super::solve_linear(m, v)?;
+            if s * c[1] > 0.0 || s * c[2] > 0.0 {
+                c = [y.iter().sum::<f64>() / y.len() as f64, 0.0, 0.0];
+            }
+        }
         let sse: f64 = t
             .iter()
             .zip(y)
             .map(|(&ti, &yi)| {
-                let h = (ti - tp) * (ti - tp);
-                let model = c[0] + if ti < tp { c[1] * h } else { c[2] * h };
-                (yi - model).powi(2)
+                let b = basis(ti);
+                (yi - c[0] - c[1] * b[1] - c[2] * b[2]).powi(2)
             })
             .sum();
-        // A vertex must be a peak in the direction of the motion on both sides.
-        (s * c[1] <= 0.0 && s * c[2] <= 0.0).then_some((sse, c[0]))
+        Some((sse, c))
     };
     let sse = |tp: f64| fit(tp).map_or(f64::INFINITY, |f| f.0);
-    let k = (1..m - 1).min_by(|&a, &b| sse(t[a]).total_cmp(&sse(t[b])))?;
+    let step = (m - 2).div_ceil(COARSE_VERTICES).max(1);
+    let best_of = |ks: &mut dyn Iterator<Item = usize>| {
+        ks.map(|k| (k, sse(t[k])))
+            .min_by(|a, b| a.1.total_cmp(&b.1))
+            .map(|(k, _)| k)
+    };
+    let coarse = best_of(&mut (1..m - 1).step_by(step))?;
+    let k =
+        best_of(&mut (coarse.saturating_sub(2 * step).max(1)..(coarse + 2 * step + 1).min(m - 1)))?;
     let tp = golden_min(t[k - 1], t[k + 1], sse);
-    let (least, value) = fit(tp)?;
+    let (least, c) = fit(tp)?;
     let limit = super::profile_limit(least, t.len(), 4);
     let period = (t[t.len() - 1] - t[0]) / (t.len() - 1) as f64;
     let (lo, hi) = continuous_interval(&sse, tp, 0.02 * period, 2.0 * period, limit);
-    Some((tp, value, 0.5 * (hi - lo) / 1.96))
+    Some(TopFit {
+        vertex_s: tp,
+        value: c[0],
+        sd_s: 0.5 * (hi - lo) / 1.96,
+        before: c[1],
+        after: c[2],
+    })
 }
 
 /// End of the fast phase and its standard uncertainty: the peak when the motion runs straight
@@ -819,6 +999,7 @@ pub fn detect_release(
             s,
             phase.size,
             noise_sigma,
+            t_mid,
         )
     });
     let (end_s, end_sd_s) = fast_phase_end(t, y, top.as_ref(), t_mid, crossing_s, longest_s);
@@ -1308,6 +1489,89 @@ mod tests {
                 (release_shape(h + 1e-7, h_mid, zeta) - release_shape(h - 1e-7, h_mid, zeta)) / 2e-7
             };
             assert!(speed(h_mid) > speed(0.9 * h_mid) && speed(h_mid) > speed(1.1 * h_mid));
+        }
+    }
+
+    /// A slow release at 15 kfps: a 1 - cos rise of `jump` over `dur_frames` frames from frame
+    /// 3000 plus a sub-frame phase, then ringing about the new level made of `modes` (amplitude
+    /// as a share of the jump, half-period in frames), each starting at its crest with zero
+    /// speed, in Gaussian noise of sd 1 (seeded). Returns the times, the frames and the true
+    /// first extremum, seconds.
+    fn slow_top(
+        seed: u64,
+        dur_frames: f64,
+        jump: f64,
+        modes: &[(f64, f64)],
+    ) -> (Vec<f64>, Vec<f64>, f64) {
+        use rand::SeedableRng;
+        use rand_distr::{Distribution, Normal};
+        let fps = 15_000.0;
+        let pi = std::f64::consts::PI;
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+        let noise = Normal::new(0.0, 1.0).unwrap();
+        let tr = 3000.0 + 0.1 * seed as f64;
+        let crest: f64 = modes.iter().map(|m| m.0).sum();
+        let top = jump * (1.0 + crest);
+        let y = (0..9000)
+            .map(|k| {
+                let h = k as f64 - tr;
+                let v = if h <= 0.0 {
+                    0.0
+                } else if h < dur_frames {
+                    0.5 * top * (1.0 - (pi * h / dur_frames).cos())
+                } else {
+                    let g = h - dur_frames;
+                    let ring: f64 = modes
+                        .iter()
+                        .map(|&(share, half)| {
+                            share * jump * (pi * g / half).cos() * (-g / (4.0 * half)).exp()
+                        })
+                        .sum();
+                    jump + ring
+                };
+                v + noise.sample(&mut rng)
+            })
+            .collect();
+        let t = (0..9000).map(|k| k as f64 / fps).collect();
+        (t, y, (tr + dur_frames) / fps)
+    }
+
+    #[test]
+    fn a_slow_noisy_peak_of_a_long_release_at_15_kfps_is_found_within_two_frames() {
+        // Issue 14: a 100-frame release of 20 noise sd that overshoots by 40 % of the jump,
+        // ringing with a half-period of 230 frames: the top stays within one noise sd of its
+        // crest for about 50 frames, and a parabola's vertex there spreads by about a frame.
+        // Ten seeds: at least nine within 2 frames and none beyond 3 (measured: nine within
+        // 1.8, one 2.4 frames off). Walking out from the highest frame (the window before)
+        // had four of the ten within 2 frames and three beyond 10: the highest frame of a
+        // flat noisy top is a noise spike, and the walk stops at the first low frame.
+        let period = 1.0 / 15_000.0;
+        let mut within_two = 0;
+        for seed in 0..10 {
+            let (t, y, truth) = slow_top(seed, 100.0, 20.0, &[(0.4, 230.0)]);
+            let ev = detect_release(&t, &y, period, 1.0, &ReleaseConfig::default()).unwrap();
+            let err = (ev.motion_peak_s - truth) / period;
+            assert!(ev.overshoot, "seed {seed}");
+            assert!(err.abs() <= 3.0, "seed {seed}: peak {err:.2} frames");
+            within_two += usize::from(err.abs() <= 2.0);
+        }
+        assert!(within_two >= 9, "{within_two} of 10 within 2 frames");
+    }
+
+    #[test]
+    fn a_two_mode_double_top_gives_its_first_extremum() {
+        // Issue 14: a fast mode (30 % of the slow one, 5 times its frequency) riding on the
+        // slow ringing makes a double top: the first crest at the end of the release, a second
+        // one a fast period later, 27 % of the slow amplitude lower. The peak is the first
+        // extremum: within 2 frames of it on each of ten seeds (measured: within 1.4). Walking
+        // out from the highest frame took in the second crest's shoulder on one seed (3.2
+        // frames late).
+        let period = 1.0 / 15_000.0;
+        for seed in 0..10 {
+            let (t, y, truth) = slow_top(seed, 40.0, 40.0, &[(0.5, 150.0), (0.15, 30.0)]);
+            let ev = detect_release(&t, &y, period, 1.0, &ReleaseConfig::default()).unwrap();
+            let err = (ev.motion_peak_s - truth) / period;
+            assert!(err.abs() <= 2.0, "seed {seed}: peak {err:.2} frames");
         }
     }
 }
