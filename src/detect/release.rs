@@ -21,8 +21,8 @@
 //!   spread.
 //! - motion peak: the data's own first extremum in the direction of the motion (the frame where
 //!   the phase's move turns back), refined by a least-squares fit of two half-parabolas that
-//!   share a vertex (the rise and the fall of a peak need not be equally sharp; a side that
-//!   does not fall is held flat). The frames first come from a walk out of the highest frame
+//!   share a vertex (the rise and the fall of a peak need not be equally sharp). The frames
+//!   first come from a walk out of the highest frame
 //!   to a drop of four noise standard deviations (a parabola through three frames when fewer
 //!   than six are that close). When the top is wide (the peak rate eight frames or more
 //!   before it: slow releases at thousands of frames a second), the highest frame is a noise
@@ -30,8 +30,9 @@
 //!   own curvature instead: each side reaches as far as the fitted parabola falls by 15 % of
 //!   that side's swing (at least four noise standard deviations), never back past the peak
 //!   rate and never past 60 % of the way to the first trough (a fast mode riding on the slow
-//!   one bends the fall there, and its second crest is not the first extremum); window and
-//!   fit alternate until the window holds still. No model fitted to other frames ever moves
+//!   one bends the fall there, and its second crest is not the first extremum); on such a
+//!   window a side that does not fall is held flat (the motion comes to rest there); window
+//!   and fit alternate until the window holds still. No model fitted to other frames ever moves
 //!   the peak.
 //! - end of the fast phase: the motion peak when the motion runs straight into it; when the
 //!   motion comes to rest first (overdamped, or a peak reached long after the speed has fallen
@@ -720,7 +721,7 @@ fn walked_peak(t: &[f64], y: &[f64], k: usize, w: usize, s: f64, rise: f64, sigm
     let (a, b) = (a.min(k.saturating_sub(2)), b.max((k + 2).min(n - 1)));
     let period = (t[n - 1] - t[0]) / (n - 1).max(1) as f64;
     let fitted = (b + 1 - a >= 5)
-        .then(|| two_sided_fit(&t[a..=b], &y[a..=b], s))
+        .then(|| two_sided_fit(&t[a..=b], &y[a..=b], s, false))
         .flatten();
     let (time_s, value, sd_s) = match fitted {
         Some(f) => (f.vertex_s, f.value, f.sd_s),
@@ -767,7 +768,7 @@ fn curvature_window_peak(
         if b < a + 5 {
             return None;
         }
-        let fit = two_sided_fit(&t[a..=b], &y[a..=b], s)?;
+        let fit = two_sided_fit(&t[a..=b], &y[a..=b], s, true)?;
         centre = nearest_frame(t, fit.vertex_s);
         let most_after = ((PEAK_FALL_REACH * kt.saturating_sub(centre) as f64) as usize).max(3);
         let side = |curvature: f64, drop: f64, most: usize| -> usize {
@@ -855,12 +856,13 @@ const COARSE_VERTICES: usize = 48;
 
 /// Least-squares fit of y = c + a_l (t - tp)^2 [t < tp] + a_r (t - tp)^2 [t >= tp] to the
 /// frames `t`, `y`: the rise and the fall of a peak each get their own curvature. A side whose
-/// curvature comes out of the wrong sign for a peak in direction `s` is held flat (the motion
-/// comes to rest on that side); both wrong, the fit is the mean. The vertex tp is sought over
+/// curvature comes out of the wrong sign for a peak in direction `s` rules that tp out, or,
+/// with `hold_flat` (a wide top's window, where the motion may come to rest on one side), is
+/// held flat; both wrong, the fit is the mean. The vertex tp is sought over
 /// the inner frames (a coarse grid, then frame by frame near the best), then refined between
 /// frames by golden-section search. The vertex time's standard uncertainty is the 95 %
 /// profile-likelihood half-width over 1.96.
-fn two_sided_fit(t: &[f64], y: &[f64], s: f64) -> Option<TopFit> {
+fn two_sided_fit(t: &[f64], y: &[f64], s: f64, hold_flat: bool) -> Option<TopFit> {
     let m = t.len();
     if m < 5 {
         return None;
@@ -886,6 +888,9 @@ fn two_sided_fit(t: &[f64], y: &[f64], s: f64) -> Option<TopFit> {
             }
         }
         let mut c = super::solve_linear(m, v)?;
+        if !hold_flat && (s * c[1] > 0.0 || s * c[2] > 0.0) {
+            return None;
+        }
         if s * c[1] > 0.0 || s * c[2] > 0.0 {
             // Hold a side flat: its unknown decouples and solves to zero.
             for j in (1..3).filter(|&j| s * c[j] > 0.0) {
