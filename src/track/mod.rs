@@ -300,9 +300,9 @@ impl TrackPlan {
         }
     }
 
-    /// Follows every start point through the video: the kept frames, then, when some were
-    /// left out, the frames after them decoded again. Per point, its (x, y) per frame (NaN
-    /// once lost).
+    /// Follows every start point through the video: the kept frames and, when some were
+    /// left out, the others decoded again (after a kept prefix, or up to a kept tail). Per
+    /// point, its (x, y) per frame (NaN once lost).
     fn run(
         &self,
         replay: Replay,
@@ -311,36 +311,17 @@ impl TrackPlan {
         frames: usize,
     ) -> Result<Vec<Vec<(f32, f32)>>> {
         let mut tracker = Tracker::new(self, frames);
-        let width = self.width;
-        let last_kept = replay.frames.last().map(|k| k.index);
-        for kept in &replay.frames {
-            let g = gain.get(tracker.seen).copied().unwrap_or(1.0);
-            tracker.push(crop_scaled(width, self.crop, g, |start, x0, x1, s, out| {
-                kept.pixels.extend_scaled(start, x0, x1, s, out)
-            }));
-        }
-        drop(replay.frames);
-        if !replay.whole {
-            let mut source = open()?;
-            if let Some(last) = last_kept {
-                source.skip_to(last + 1);
-            }
-            while let Some(frame) = source.next_frame()? {
-                if last_kept.is_some_and(|last| frame.index <= last) {
-                    continue;
-                }
-                if (frame.width, frame.height) != (width, self.height) {
-                    return Err(Error::Usage(format!(
-                        "frame {} is {}x{} on the video's second reading but {width}x{} on its first",
-                        frame.index, frame.width, frame.height, self.height
-                    )));
-                }
-                let g = gain.get(tracker.seen).copied().unwrap_or(1.0);
-                let full = Pixels::F32(frame.luma);
-                tracker.push(crop_scaled(width, self.crop, g, |start, x0, x1, s, out| {
-                    full.extend_scaled(start, x0, x1, s, out)
-                }));
-            }
+        if replay.whole {
+            self.push_kept(&mut tracker, &replay, gain);
+        } else if replay.prefix {
+            self.push_kept(&mut tracker, &replay, gain);
+            let after = replay.frames.back().map(|k| k.index);
+            drop(replay);
+            self.push_decoded(&mut tracker, open()?.as_mut(), gain, after, None)?;
+        } else {
+            let until = replay.frames.front().map(|k| k.index);
+            self.push_decoded(&mut tracker, open()?.as_mut(), gain, None, until)?;
+            self.push_kept(&mut tracker, &replay, gain);
         }
         if tracker.seen != frames {
             return Err(Error::Usage(format!(
@@ -349,6 +330,55 @@ impl TrackPlan {
             )));
         }
         Ok(tracker.paths)
+    }
+
+    /// Feeds the kept frames to the tracker.
+    fn push_kept(&self, tracker: &mut Tracker, replay: &Replay, gain: &[f64]) {
+        for kept in &replay.frames {
+            let g = gain.get(tracker.seen).copied().unwrap_or(1.0);
+            tracker.push(crop_scaled(
+                self.width,
+                self.crop,
+                g,
+                |start, x0, x1, s, out| kept.pixels.extend_scaled(start, x0, x1, s, out),
+            ));
+        }
+    }
+
+    /// Feeds the tracker the frames of `source` after frame `after` and before frame `until`
+    /// (each when given), decoded again.
+    fn push_decoded(
+        &self,
+        tracker: &mut Tracker,
+        source: &mut dyn FrameSource,
+        gain: &[f64],
+        after: Option<i64>,
+        until: Option<i64>,
+    ) -> Result<()> {
+        let width = self.width;
+        if let Some(last) = after {
+            source.skip_to(last + 1);
+        }
+        while let Some(frame) = source.next_frame()? {
+            if after.is_some_and(|last| frame.index <= last) {
+                continue;
+            }
+            if until.is_some_and(|first| frame.index >= first) {
+                break;
+            }
+            if (frame.width, frame.height) != (width, self.height) {
+                return Err(Error::Usage(format!(
+                    "frame {} is {}x{} on the video's second reading but {width}x{} on its first",
+                    frame.index, frame.width, frame.height, self.height
+                )));
+            }
+            let g = gain.get(tracker.seen).copied().unwrap_or(1.0);
+            let full = Pixels::F32(frame.luma);
+            tracker.push(crop_scaled(width, self.crop, g, |start, x0, x1, s, out| {
+                full.extend_scaled(start, x0, x1, s, out)
+            }));
+        }
+        Ok(())
     }
 }
 
@@ -751,6 +781,8 @@ mod tests {
         next: usize,
         skips: bool,
         info: VideoInfo,
+        /// Frames handed out by `next_frame`, over every opening.
+        served: std::rc::Rc<std::cell::Cell<usize>>,
     }
 
     impl FrameSource for Held {
@@ -759,7 +791,10 @@ mod tests {
         }
         fn next_frame(&mut self) -> Result<Option<Frame>> {
             self.next += 1;
-            Ok(self.frames.get(self.next - 1).cloned())
+            let frame = self.frames.get(self.next - 1).cloned();
+            self.served
+                .set(self.served.get() + usize::from(frame.is_some()));
+            Ok(frame)
         }
         fn skip_to(&mut self, index: i64) {
             while self.skips && self.frames.get(self.next).is_some_and(|f| f.index < index) {
@@ -807,10 +842,13 @@ mod tests {
             let frames = rendered(whole);
             let frame_bytes = frames[0].luma.len() * if whole { 1 } else { 4 };
             let mut opened = Vec::new();
+            let mut served = Vec::new();
             let mut results = Vec::new();
-            // None kept, the first 57 of 200 kept, all kept.
+            // None kept, 57 of 200 kept (the first from a source that skips, else the last),
+            // all kept.
             for budget in [0, 57 * frame_bytes, usize::MAX] {
                 let mut opens = 0;
+                let count = std::rc::Rc::new(std::cell::Cell::new(0));
                 let m = measure_video_within(
                     || {
                         opens += 1;
@@ -823,6 +861,7 @@ mod tests {
                                 container_fps: None,
                                 frames_listed: frames.len() as u64,
                             },
+                            served: count.clone(),
                         }))
                     },
                     &MeasureConfig::default(),
@@ -831,10 +870,18 @@ mod tests {
                 .unwrap();
                 assert!(m.track.as_ref().is_some_and(|t| t.range_px > 5.0));
                 opened.push(opens);
+                served.push(count.get());
                 // Debug prints each f64 in its shortest exact form: equal text, equal bits.
                 results.push(format!("{m:?}"));
             }
             assert_eq!(opened, [2, 2, 1]);
+            // The second reading decodes only the 143 frames not kept (and, from a source that
+            // cannot skip, the first kept one, where it stops).
+            assert_eq!(
+                served,
+                [400, 200 + 143 + usize::from(!skips), 200],
+                "skips {skips}"
+            );
             assert_eq!(results[0], results[1]);
             assert_eq!(results[0], results[2]);
         }

@@ -5,11 +5,15 @@
 //! pass (medians and spreads over every frame), so the tracker cannot run until the video has
 //! been read to its end: either the frames are kept, or the video is decoded again. Frames
 //! are kept losslessly in the narrowest type that holds their values exactly (8-bit sources as
-//! `u8`, 16-bit as `u16`, anything else, such as a colour frame's BT.601 luma, as `f32`), in
-//! order from the first, until the budget is spent; the second pass replays them and decodes
-//! only the frames after them. A video keeps frames only when a quarter of it fits
-//! ([`MIN_SHARE`]), and one whose source cannot skip (H.264, a multi-page TIFF) only when all of
-//! it fits. Replayed values are bit for bit the decoder's, so both ways give the same measures.
+//! `u8`, 16-bit as `u16`, anything else, such as a colour frame's BT.601 luma, as `f32`).
+//! A source that can skip ahead keeps its first frames until the budget is spent; the second
+//! pass replays them and decodes only the frames after them. A source that cannot skip
+//! (H.264, a multi-page TIFF) keeps its last frames instead, dropping the oldest as new ones
+//! come: the second pass decodes from the start and stops where the kept frames begin. Either
+//! way a video keeps frames only when a quarter of it fits ([`MIN_SHARE`]). Replayed values
+//! are bit for bit the decoder's, so both ways give the same measures.
+
+use std::collections::VecDeque;
 
 /// Bytes of decoded frames kept for the second pass, per worker. 128 MiB keeps 512 frames of
 /// 512 x 512 at 8 bits (0.26 s at 2000 fps); with [`MIN_SHARE`], only videos of up to 2048 such
@@ -102,20 +106,24 @@ pub struct Kept {
     pub pixels: Pixels,
 }
 
-/// The first frames of a video, kept while they fit the budget.
+/// Frames of a video kept while they fit the budget: its first ones, or, from a source that
+/// cannot skip, its last ones.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Replay {
-    pub frames: Vec<Kept>,
+    /// The kept frames, in order: a run from the first frame (`prefix`) or one that ends at
+    /// the last frame read.
+    pub frames: VecDeque<Kept>,
     bytes: usize,
     budget: usize,
     /// Frames the source lists.
     listed: u64,
     /// Whether the frames after a kept prefix can be reached without decoding the prefix
-    /// again ([`crate::decode::video::FrameSource::skips`]); if not, only a whole video is
-    /// kept.
-    prefix: bool,
+    /// again ([`crate::decode::video::FrameSource::skips`]); if not, the last frames are kept.
+    pub prefix: bool,
     /// Whether every frame read so far was kept.
     pub whole: bool,
+    /// Whether keeping has stopped (too little of the video fits, or a prefix is full).
+    stopped: bool,
 }
 
 impl Replay {
@@ -123,33 +131,36 @@ impl Replay {
     /// whether a kept prefix saves decoding (the source skips).
     pub fn new(budget_bytes: usize, listed: u64, prefix: bool) -> Self {
         Replay {
-            frames: Vec::new(),
+            frames: VecDeque::new(),
             bytes: 0,
             budget: budget_bytes,
             listed,
             prefix,
             whole: true,
+            stopped: false,
         }
     }
 
-    /// Stops keeping; what was kept stays only when the second pass can start after it.
+    /// Stops keeping, with what was kept.
     fn stop(&mut self) {
         self.whole = false;
-        if !self.prefix {
-            self.frames = Vec::new();
-            self.bytes = 0;
-        }
+        self.stopped = true;
     }
 
-    /// Keeps a frame if every frame before it was kept and it fits the budget.
+    /// Keeps a frame: after a prefix whose every frame was kept and that still fits the
+    /// budget, or, from a source that cannot skip, always, dropping the oldest frames until
+    /// the budget holds.
     pub fn offer(&mut self, index: i64, luma: &[f32]) {
-        if !self.whole {
+        if self.stopped {
             return;
         }
         let listed_bytes = self.listed as f64 * luma.len() as f64;
-        let share = if self.prefix { MIN_SHARE } else { 1.0 };
-        if self.frames.is_empty() && (self.budget as f64) < share * listed_bytes {
+        if self.frames.is_empty() && (self.budget as f64) < MIN_SHARE * listed_bytes {
             self.stop();
+            return;
+        }
+        if !self.prefix {
+            self.keep_last(index, luma);
             return;
         }
         // The narrowest form is at least a byte a pixel: skip the copy when even that won't fit.
@@ -163,7 +174,21 @@ impl Replay {
             return;
         }
         self.bytes += pixels.bytes();
-        self.frames.push(Kept { index, pixels });
+        self.frames.push_back(Kept { index, pixels });
+    }
+
+    /// Keeps the frame as the newest, dropping the oldest until the budget holds.
+    fn keep_last(&mut self, index: i64, luma: &[f32]) {
+        let pixels = Pixels::from_luma(luma);
+        self.bytes += pixels.bytes();
+        self.frames.push_back(Kept { index, pixels });
+        while self.bytes > self.budget {
+            match self.frames.pop_front() {
+                Some(old) => self.bytes -= old.pixels.bytes(),
+                None => break,
+            }
+            self.whole = false;
+        }
     }
 }
 
@@ -216,17 +241,27 @@ mod tests {
     }
 
     #[test]
-    fn a_source_that_cannot_skip_keeps_a_whole_video_or_nothing() {
-        let mut r = Replay::new(35, 9, false);
+    fn a_source_that_cannot_skip_keeps_its_last_frames() {
+        // Nine listed frames of four pixels: a budget under a quarter of them keeps nothing.
+        let mut r = Replay::new(8, 9, false);
         r.offer(0, &[1.0; 4]);
         assert!(r.frames.is_empty() && !r.whole);
-        // Listed as fitting, but the frames come wider than a byte a pixel.
-        let mut r = Replay::new(36, 9, false);
-        r.offer(0, &[1.0; 4]);
-        r.offer(1, &[300.0; 4]);
-        r.offer(2, &[0.5; 4]);
-        assert_eq!(r.frames.len(), 3);
-        r.offer(3, &[0.5; 4]);
-        assert!(r.frames.is_empty() && !r.whole);
+        // Twelve bytes hold three 8-bit frames; a 16-bit frame takes two places.
+        let mut r = Replay::new(12, 9, false);
+        for i in 0..3 {
+            r.offer(i, &[1.0; 4]);
+        }
+        assert!(r.whole);
+        r.offer(3, &[300.0; 4]);
+        assert!(!r.whole);
+        let kept: Vec<i64> = r.frames.iter().map(|k| k.index).collect();
+        assert_eq!(kept, [2, 3]);
+        r.offer(4, &[2.0; 4]);
+        r.offer(5, &[2.0; 4]);
+        let kept: Vec<i64> = r.frames.iter().map(|k| k.index).collect();
+        assert_eq!(kept, [4, 5]);
+        r.offer(6, &[2.0; 4]);
+        let kept: Vec<i64> = r.frames.iter().map(|k| k.index).collect();
+        assert_eq!(kept, [4, 5, 6]);
     }
 }
