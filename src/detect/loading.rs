@@ -798,11 +798,18 @@ fn head_sums(
     sums.fill(0.0);
     let (sx, rest) = sums.split_at_mut(steps);
     let (sxx, syx) = rest.split_at_mut(steps);
+    // The ramps in the order of their ends, so that each bin looks at the next end only
+    // (every end is at most the bin count, and the last bin's call takes those at it).
+    let mut order: Vec<usize> = (0..ends.len()).collect();
+    order.sort_by_key(|&r| ends[r]);
+    let mut next = 0;
     let mut keep = |k: usize, sx: &[f64], sxx: &[f64], syx: &[f64]| {
-        for (r, _) in ends.iter().enumerate().filter(|(_, &e)| e == k) {
-            for s in 0..steps {
-                head[r * steps + s] = [sx[s], sxx[s], syx[s]];
+        while let Some(&r) = order.get(next).filter(|&&r| ends[r] == k) {
+            let kept = head[r * steps..(r + 1) * steps].iter_mut();
+            for (h, ((&a, &b), &c)) in kept.zip(sx.iter().zip(sxx).zip(syx)) {
+                *h = [a, b, c];
             }
+            next += 1;
         }
     };
     for k in 0..bt.len() {
@@ -813,11 +820,12 @@ fn head_sums(
         }
         fill_powers(x, root_powers, levels[0][k], &roots[..depth]);
         let (w, wy) = (bw[k], bw[k] * by[k]);
-        for s in 0..steps {
-            let v = x[s];
-            sx[s] += w * v;
-            sxx[s] += w * v * v;
-            syx[s] += wy * v;
+        // Zipped, not indexed: the three sums then need no bounds checks and run as vectors.
+        let columns = sx.iter_mut().zip(sxx.iter_mut()).zip(syx.iter_mut());
+        for (((sx, sxx), syx), &v) in columns.zip(x.iter()) {
+            *sx += w * v;
+            *sxx += w * v * v;
+            *syx += wy * v;
         }
     }
     keep(bt.len(), sx, sxx, syx);
