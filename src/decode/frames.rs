@@ -113,14 +113,20 @@ fn parse_cell(text: &str, decimal_comma: bool, scale_exp: i32, powers: &Powers) 
     {
         return Cell::Missing;
     }
-    let mark = if decimal_comma { ',' } else { '.' };
+    // Marks and exponent letters are ASCII, so they are looked for byte by byte (a byte
+    // below 0x80 is never part of a longer UTF-8 character): the same indices as a search
+    // by char, at a fraction of its cost, once per cell of every row.
+    let (mark, other) = if decimal_comma {
+        (b',', b'.')
+    } else {
+        (b'.', b',')
+    };
     // A decimal point in a decimal-comma file (or a comma in a decimal-point file) is refused
     // as not a number: it may be a thousands separator.
-    let other = if decimal_comma { '.' } else { ',' };
-    if t.contains(other) {
+    if t.as_bytes().contains(&other) {
         return Cell::NotNumber;
     }
-    let (mantissa, exponent) = match t.find(['e', 'E']) {
+    let (mantissa, exponent) = match t.bytes().position(|b| b == b'e' || b == b'E') {
         Some(i) => (&t[..i], &t[i + 1..]),
         None => (t, ""),
     };
@@ -133,7 +139,7 @@ fn parse_cell(text: &str, decimal_comma: bool, scale_exp: i32, powers: &Powers) 
         }
     };
     let digits = mantissa.trim_start_matches(['+', '-']);
-    let (whole, frac) = match digits.find(mark) {
+    let (whole, frac) = match digits.bytes().position(|b| b == mark) {
         Some(i) => (&digits[..i], &digits[i + 1..]),
         None => (digits, ""),
     };

@@ -511,6 +511,8 @@ struct Bins {
     y: Vec<f64>,
     w: Vec<f64>,
     within: f64,
+    /// Sums over all bins of w, w y and w y^2, the same for every candidate onset.
+    sums: [f64; 3],
 }
 
 /// A candidate onset's least residual and the fit that reaches it.
@@ -524,6 +526,7 @@ impl Bins {
             y: Vec::new(),
             w: Vec::new(),
             within: 0.0,
+            sums: [0.0; 3],
         };
         let mut start = 0;
         while start < tt.len() {
@@ -538,6 +541,12 @@ impl Bins {
             bins.w.push(w);
             start = end;
         }
+        let (by, bw) = (&bins.y, &bins.w);
+        bins.sums = [
+            bw.iter().sum(),
+            bw.iter().zip(by).map(|(w, y)| w * y).sum(),
+            bw.iter().zip(by).map(|(w, y)| w * y * y).sum(),
+        ];
         bins
     }
 
@@ -621,9 +630,7 @@ impl Bins {
         if span <= 0.0 || bt.len() < first + 3 {
             return None;
         }
-        let sw: f64 = bw.iter().sum();
-        let sy: f64 = bw.iter().zip(by).map(|(w, y)| w * y).sum();
-        let syy: f64 = bw.iter().zip(by).map(|(w, y)| w * y * y).sum();
+        let [sw, sy, syy] = self.sums;
         let halvings = if shapes.ramps { 2 * RAMP_HALVINGS } else { 0 };
         let ramps: Vec<f64> = (0..=halvings)
             .map(|k| {
@@ -634,7 +641,11 @@ impl Bins {
                 }
             })
             .collect();
-        let power = |s: usize| 1.0 + s as f64 / den as f64;
+        let powers = sized(&mut scratch.powers, steps, 0.0);
+        for (s, p) in powers.iter_mut().enumerate() {
+            *p = 1.0 + s as f64 / den as f64;
+        }
+        let powers = &*powers;
         // Past a ramp's end x = ramp^p + p ramp^(p - 1) (h - ramp): the two terms per ramp and
         // exponent (unused for the ramp that never ends).
         let StartScratch {
@@ -646,6 +657,7 @@ impl Bins {
             x,
             root_powers,
             levels,
+            ..
         } = scratch;
         let past = sized(past, ramps.len() * steps, (0.0, 0.0));
         let x = sized(x, steps, 0.0);
@@ -658,7 +670,7 @@ impl Bins {
             }
             fill_powers(x, root_powers, ramp, &roots[1..=roots_count]);
             for (s, &rp) in x.iter().enumerate() {
-                past[r * steps + s] = (rp, power(s) * rp / ramp);
+                past[r * steps + s] = (rp, powers[s] * rp / ramp);
             }
         }
         // Per ramp and exponent (and the cycloidal ramp, when ramps may end, as the last
@@ -733,7 +745,7 @@ impl Bins {
                 let ramp = ramps[i / cols];
                 let fit = StartFit {
                     tau,
-                    p: if s == steps { CYCLOIDAL } else { power(s) },
+                    p: if s == steps { CYCLOIDAL } else { powers[s] },
                     ramp: if s == steps { ramp.min(span) } else { ramp },
                     level,
                     scale,
@@ -798,11 +810,18 @@ fn head_sums(
     sums.fill(0.0);
     let (sx, rest) = sums.split_at_mut(steps);
     let (sxx, syx) = rest.split_at_mut(steps);
+    // The ramps in the order of their ends, so that each bin looks at the next end only
+    // (every end is at most the bin count, and the last bin's call takes those at it).
+    let mut order: Vec<usize> = (0..ends.len()).collect();
+    order.sort_by_key(|&r| ends[r]);
+    let mut next = 0;
     let mut keep = |k: usize, sx: &[f64], sxx: &[f64], syx: &[f64]| {
-        for (r, _) in ends.iter().enumerate().filter(|(_, &e)| e == k) {
-            for s in 0..steps {
-                head[r * steps + s] = [sx[s], sxx[s], syx[s]];
+        while let Some(&r) = order.get(next).filter(|&&r| ends[r] == k) {
+            let kept = head[r * steps..(r + 1) * steps].iter_mut();
+            for (h, ((&a, &b), &c)) in kept.zip(sx.iter().zip(sxx).zip(syx)) {
+                *h = [a, b, c];
             }
+            next += 1;
         }
     };
     for k in 0..bt.len() {
@@ -813,11 +832,12 @@ fn head_sums(
         }
         fill_powers(x, root_powers, levels[0][k], &roots[..depth]);
         let (w, wy) = (bw[k], bw[k] * by[k]);
-        for s in 0..steps {
-            let v = x[s];
-            sx[s] += w * v;
-            sxx[s] += w * v * v;
-            syx[s] += wy * v;
+        // Zipped, not indexed: the three sums then need no bounds checks and run as vectors.
+        let columns = sx.iter_mut().zip(sxx.iter_mut()).zip(syx.iter_mut());
+        for (((sx, sxx), syx), &v) in columns.zip(x.iter()) {
+            *sx += w * v;
+            *sxx += w * v * v;
+            *syx += wy * v;
         }
     }
     keep(bt.len(), sx, sxx, syx);
@@ -852,6 +872,8 @@ struct StartScratch {
     x: Vec<f64>,
     root_powers: Vec<f64>,
     levels: Vec<Vec<f64>>,
+    /// The exponents 1 + s / den.
+    powers: Vec<f64>,
 }
 
 /// Variance inflation of a residual series whose noise is correlated (a slow wander of the

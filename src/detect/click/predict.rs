@@ -161,11 +161,15 @@ impl NormalEquations {
         let p = self.p;
         let yn = y[n];
         self.yy += sign * yn * yn;
-        for i in 0..p {
-            let yi = sign * y[n - 1 - i];
-            self.v[i] += yi * yn;
-            for j in 0..=i {
-                self.r[i * p + j] += yi * y[n - 1 - j];
+        // The p samples before n, newest first: history[i] = y[n - 1 - i]. Zipped rather
+        // than indexed, so the row updates run without bounds checks.
+        let history = y[n - p..n].iter().rev();
+        for (i, (&past, v)) in history.clone().zip(self.v.iter_mut()).enumerate() {
+            let yi = sign * past;
+            *v += yi * yn;
+            let lower = self.r[i * p..=i * p + i].iter_mut();
+            for (rij, &yj) in lower.zip(history.clone()) {
+                *rij += yi * yj;
             }
         }
     }

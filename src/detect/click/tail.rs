@@ -165,22 +165,38 @@ fn extrapolate(
     // exponential is skipped, and so is a whole block whose largest energy cannot. Oldest
     // first: in a decaying tail the oldest windows hold the most energy, and the newer ones
     // then rarely pass. The same maximum as over every window, to the bit: a rounded product
-    // a x f with f <= 1 never exceeds a, and subtracting the noise keeps order.
+    // a x f with f <= 1 never exceeds a, and subtracting the noise keeps order. Likewise a
+    // window (or block) whose energy times the largest factor of its block cannot pass is
+    // skipped: see [`factor_bound`].
     let mut above = 0.0f64;
     let mut s = start;
     while s <= end {
         let block_end = ((s / TAIL_BLOCK + 1) * TAIL_BLOCK).min(end + 1);
-        if (blocks.at(s) - noise_energy).max(0.0) > above {
-            for (w, &e) in energy.iter().enumerate().take(block_end).skip(s) {
-                let excess = (e - noise_energy).max(0.0);
-                if excess > above {
-                    above = above.max(excess * (-rate * (i - w) as f64).exp());
+        let block_excess = (blocks.at(s) - noise_energy).max(0.0);
+        if block_excess > above {
+            let bound = factor_bound(rate, i - (block_end - 1));
+            if block_excess * bound > above {
+                for (w, &e) in energy.iter().enumerate().take(block_end).skip(s) {
+                    let excess = (e - noise_energy).max(0.0);
+                    if excess > above && excess * bound > above {
+                        above = above.max(excess * (-rate * (i - w) as f64).exp());
+                    }
                 }
             }
         }
         s = block_end;
     }
     noise_energy + above
+}
+
+/// An upper bound on the decay factor exp(-rate d) of every window at least `nearest` samples
+/// before the sample it is decayed to (`rate` >= 0, so the nearest window decays least), with
+/// a margin of 1e-9 for the rounding of both exponentials (each within a few ulps, 2.2e-16
+/// apiece). A product `a x bound` (a >= 0) at or under the running maximum thus proves that
+/// the rounded `a x exp(-rate d)` cannot exceed it, so skipping its exponential leaves the
+/// maximum the same to the bit.
+fn factor_bound(rate: f64, nearest: usize) -> f64 {
+    (-rate * nearest as f64).exp() * (1.0 + 1e-9)
 }
 
 /// Samples per block of [`BlockMax`].
