@@ -1,8 +1,9 @@
 //! The speed comparison (`cargo bench --bench peer`): one run generates the workload, times the
 //! read floor, `latchtime batch --jobs 1 --force`, `--jobs 2` and the numpy/scipy peer
 //! (`benches/peer/pipeline.py`) on the same files, and prints the two ratios, the per-stage
-//! profile and the cost per second of audio at 0.5 s and 60 s recordings with the peak memory
-//! of one worker. Asserts nothing: speed is not a test.
+//! profile, the cost per second of audio at 0.5 s and 60 s recordings with the peak memory
+//! of one worker, and the cost per frame of frames-only records of 1000 to 100,000 frames.
+//! Asserts nothing: speed is not a test.
 //!
 //! Times are CPU seconds (user + system, from `wait4` for the child processes and the thread's
 //! CPU clock in-process), the least of `LATCHTIME_PEER_REPEATS` runs (default 3): on a shared
@@ -399,6 +400,48 @@ fn main() {
     std::fs::create_dir_all(&records).expect("profile folder");
     print_profile(&profile(&specs, &rig, &records), specs.len());
     long_recordings(root.path(), &specs, &rig);
+    frame_scaling(root.path(), repeats);
+}
+
+/// CPU of frames-only batches (`--jobs 1`) of 100,000 frames in all at 2000 fps: 100 records
+/// of 1000 frames, 10 of 10,000 and one of 100,000. The same time for each means a cost
+/// linear in the frame count (issue 18); process start and the campaign's own files weigh
+/// the same in all three.
+fn frame_scaling(root: &Path, repeats: usize) {
+    println!(
+        "
+frames only, 100,000 frames in all at 2000 fps, batch --jobs 1:"
+    );
+    let mut first_us = None;
+    for (count, secs) in [(100usize, 0.5), (10, 5.0), (1, 50.0)] {
+        let dir = root.join(format!("frames-{count}"));
+        synth(&dir, count, secs);
+        for spec in trials(&dir) {
+            if let Some(audio) = spec.audio {
+                let _ = std::fs::remove_file(audio);
+            }
+        }
+        let (d, o) = (
+            dir.to_string_lossy().into_owned(),
+            root.join(format!("frames-{count}-out"))
+                .to_string_lossy()
+                .into_owned(),
+        );
+        let args = [
+            "batch", &d, "--out", &o, "--quiet", "--force", "--jobs", "1",
+        ];
+        let cost = best_of(repeats, EXE, &args, None);
+        let us = cost.cpu_s / 100_000.0 * 1e6;
+        let base = *first_us.get_or_insert(us);
+        // No peak memory here: after the in-process decoding above, a child's maximum
+        // resident size as wait4 reports it can start from this process's own.
+        println!(
+            "  {count:3} x {:6} frames: {:6.3} s of CPU, {us:5.2} us a frame ({:+.0} %)",
+            (secs * 2000.0) as usize,
+            cost.cpu_s,
+            100.0 * (us / base - 1.0)
+        );
+    }
 }
 
 const PEER: &str = "benches/peer/pipeline.py";
@@ -420,6 +463,16 @@ fn long_recordings(root: &Path, short: &[TrialSpec], rig: &RigProfile) {
         .filter_map(|s| s.audio.as_ref().and_then(|a| std::fs::metadata(a).ok()))
         .map(|m| m.len() as f64 / 1e6)
         .fold(0.0, f64::max);
+    let (l, o) = (
+        long_dir.to_string_lossy().into_owned(),
+        root.join("long-out").to_string_lossy().into_owned(),
+    );
+    let args = [
+        "batch", &l, "--out", &o, "--quiet", "--force", "--jobs", "1",
+    ];
+    // Before any decoding in this process: a child's maximum resident size, as wait4
+    // reports it, can start from the size of the process that forked it.
+    let cost = run(EXE, &args, None).expect("batch of long recordings");
     let per_s_short = audio_cost_per_second(short, rig);
     let per_s_long = audio_cost_per_second(&long, rig);
     println!("\naudio only, CPU per second of audio, one worker:");
@@ -429,14 +482,6 @@ fn long_recordings(root: &Path, short: &[TrialSpec], rig: &RigProfile) {
         per_s_long * 1e3,
         100.0 * (per_s_long / per_s_short - 1.0)
     );
-    let (l, o) = (
-        long_dir.to_string_lossy().into_owned(),
-        root.join("long-out").to_string_lossy().into_owned(),
-    );
-    let args = [
-        "batch", &l, "--out", &o, "--quiet", "--force", "--jobs", "1",
-    ];
-    let cost = run(EXE, &args, None).expect("batch of long recordings");
     println!(
         "  peak RSS of batch --jobs 1 over {long_count} x 60 s: {:.1} MB (WAV {wav_mb:.1} MB each; target: 2 x WAV + 20 MB = {:.1} MB)",
         cost.peak_rss_mb,
